@@ -1,0 +1,67 @@
+"""The ``dbmetrics`` command group, its global options and its exit statuses."""
+
+from __future__ import annotations
+
+import click
+import duckdb
+
+from dbmetrics.cli import demo, project, queries, run, sql
+from dbmetrics.cli.messages import one_line
+from dbmetrics.cli.session import Session
+from dbmetrics.errors import DbmetricsError
+
+EXIT_ERROR = 1
+EXIT_INTERRUPTED = 130
+
+
+class Group(click.Group):
+    """Turns user-facing errors into one line on stderr (a traceback only with --verbose)."""
+
+    def invoke(self, ctx: click.Context):
+        try:
+            return super().invoke(ctx)
+        except (DbmetricsError, duckdb.Error, OSError) as e:
+            if ctx.params.get("verbose"):
+                raise
+            raise click.ClickException(one_line(e)) from None
+        except KeyboardInterrupt:
+            click.echo("\ndbmetrics: interrupted", err=True)
+            ctx.exit(EXIT_INTERRUPTED)
+
+
+@click.group(cls=Group, context_settings={"help_option_names": ["-h", "--help"]})
+@click.option("--project", "project_file", envvar="DBMETRICS_PROJECT", metavar="PATH",
+              help="Project file (TOML) [env DBMETRICS_PROJECT; default ./dbmetrics.toml if present].")
+@click.option("--database", envvar="DBMETRICS_DATABASE", metavar="PATH",
+              help="DuckDB database file to open, kept between runs [env DBMETRICS_DATABASE; default in memory].")
+@click.option("--memory-limit", metavar="SIZE", help="DuckDB memory limit, e.g. 4GB.")
+@click.option("--threads", type=click.IntRange(min=1), help="DuckDB worker threads.")
+@click.option("--quiet", "-q", is_flag=True, help="No progress and no notes on stderr.")
+@click.option("--verbose", "-v", is_flag=True, help="Notes on stderr and full tracebacks on errors.")
+@click.pass_context
+def cli(ctx, project_file, database, memory_limit, threads, quiet, verbose):
+    """Measure classifiers from Parquet prediction logs with DuckDB.
+
+    \b
+    Example:
+      dbmetrics demo demo_parquet && dbmetrics queries
+
+    \b
+    Exit status: 0 ok; 1 error (one line on stderr); 2 bad command line;
+    3 flagged rows (--fail-on-flag); 130 interrupted.
+    Environment: DBMETRICS_PROJECT, DBMETRICS_DATABASE, and DBMETRICS_QUERY_PATH
+    (extra saved-query folders, separated by the path separator).
+    """
+    if quiet and verbose:
+        raise click.UsageError("--quiet and --verbose exclude each other")
+    try:
+        settings = project.load(project.find(project_file))
+    except DbmetricsError as e:
+        raise click.ClickException(str(e)) from None
+    session = Session(settings, database, memory_limit, threads, quiet, verbose)
+    ctx.obj = session
+    ctx.call_on_close(session.close)
+
+
+for _module in (run, queries, sql, demo):
+    cli.add_command(_module.command)

@@ -1,0 +1,137 @@
+"""Result formats and atomic file writing.
+
+Formats: ``table`` (aligned text), ``csv`` (pyarrow.csv), ``json`` and ``parquet``.
+JSON is one array of records: NaN and +/-inf become ``null`` (JSON has no such numbers),
+dates and times ISO 8601 strings, decimals numbers, binary hex strings.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import decimal
+import io
+import json
+import math
+import os
+import tempfile
+from pathlib import Path
+from typing import BinaryIO, Callable
+
+import pyarrow as pa
+
+from dbmetrics.cli.textable import render
+from dbmetrics.errors import DbmetricsError
+
+FORMATS = ("table", "csv", "json", "parquet")
+SUFFIXES = {".txt": "table", ".csv": "csv", ".json": "json", ".parquet": "parquet", ".pq": "parquet"}
+
+
+def choose_format(fmt: str | None, output: str | None) -> str:
+    """``--format`` if given, else the output suffix's format, else ``table``."""
+    if fmt:
+        return fmt
+    if output is None:
+        return "table"
+    suffix = Path(output).suffix.lower()
+    if suffix not in SUFFIXES:
+        raise DbmetricsError(
+            f"--output: cannot tell the format from '{output}'; "
+            f"use a suffix ({', '.join(SUFFIXES)}) or pass --format")
+    return SUFFIXES[suffix]
+
+
+def encode(table: pa.Table, fmt: str, out: BinaryIO) -> None:
+    """Write ``table`` to the binary stream ``out`` in format ``fmt``."""
+    try:
+        _WRITERS[fmt](table, out)
+    except (pa.ArrowNotImplementedError, pa.ArrowInvalid) as e:
+        raise DbmetricsError(f"--format {fmt}: cannot write this result: {e}; try --format json or parquet") from None
+
+
+def atomic_write(path: str, write: Callable[[BinaryIO], None]) -> None:
+    """Write through ``write`` to a temp file beside ``path``, fsync it, then rename over ``path``.
+
+    A failure or interrupt leaves ``path`` as it was and removes the temp file.
+    """
+    target = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
+    try:
+        with os.fdopen(fd, "wb") as f:
+            write(f)
+            f.flush()
+            os.fsync(f.fileno())
+        os.chmod(tmp, 0o666 & ~_umask())
+        os.replace(tmp, target)
+    except BaseException:
+        os.unlink(tmp)
+        raise
+    _fsync_dir(target.parent)
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def _fsync_dir(folder: Path) -> None:
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:  # not possible on every platform; the rename is done
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def _table(table: pa.Table, out: BinaryIO) -> None:
+    out.write(render(table).encode())
+
+
+def _csv(table: pa.Table, out: BinaryIO) -> None:
+    import pyarrow.csv as pcsv
+
+    buf = io.BytesIO()
+    pcsv.write_csv(table, buf)
+    out.write(buf.getvalue())
+
+
+def _parquet(table: pa.Table, out: BinaryIO) -> None:
+    import pyarrow.parquet as pq
+
+    pq.write_table(table, out)
+
+
+def _json(table: pa.Table, out: BinaryIO) -> None:
+    rows = [_plain(row) for row in table.to_pylist()]
+    text = json.dumps(rows, indent=1, ensure_ascii=False, allow_nan=False, default=_default)
+    out.write(text.encode() + b"\n")
+
+
+def _plain(value):
+    """Replace non-finite floats with None, recursively."""
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {k: _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    return value
+
+
+def _default(value):
+    if isinstance(value, (dt.date, dt.time)):  # datetime is a date
+        return value.isoformat()
+    if isinstance(value, dt.timedelta):
+        return value.total_seconds()
+    if isinstance(value, decimal.Decimal):
+        return int(value) if value == value.to_integral_value() else float(value)
+    if isinstance(value, bytes):
+        return value.hex()
+    return str(value)
+
+
+_WRITERS = {"table": _table, "csv": _csv, "json": _json, "parquet": _parquet}

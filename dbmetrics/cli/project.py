@@ -1,0 +1,150 @@
+"""The project file (``dbmetrics.toml``): connection settings and parameter defaults.
+
+Format::
+
+    database = "metrics.duckdb"          # relative paths: to the project file's folder
+    query_dirs = ["queries"]             # extra folders of saved queries (same rule)
+    memory_limit = "4GB"
+    threads = 2
+
+    [params]                             # every query that declares the parameter
+    logs = "demo_parquet/logs/**/*.parquet"
+    segment_cols = ["region", "channel"] # a list is passed joined with commas
+
+    [queries.drift]                      # one query only; wins over [params]
+    ref_start = "2026-01-05"
+
+Parameter values are passed as written: relative paths in them resolve against the
+current directory, like every path given to DuckDB.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from dbmetrics.errors import DbmetricsError
+
+FILE_NAME = "dbmetrics.toml"
+_SETTINGS = {"database", "query_dirs", "memory_limit", "threads", "params", "queries"}
+
+
+@dataclass(frozen=True)
+class Project:
+    """Settings read from a project file; empty when there is none."""
+
+    path: Path | None = None
+    database: str | None = None
+    query_dirs: tuple[str, ...] = ()
+    memory_limit: str | None = None
+    threads: int | None = None
+    params: dict[str, str] = field(default_factory=dict)
+    queries: dict[str, dict[str, str]] = field(default_factory=dict)
+
+    def params_for(self, name: str, declared: set[str]) -> dict[str, str]:
+        """``[params]`` restricted to ``declared``, overridden by ``[queries.NAME]``."""
+        merged = {k: v for k, v in self.params.items() if k in declared}
+        merged.update(self.queries.get(name, {}))
+        return merged
+
+
+def find(explicit: str | None) -> Path | None:
+    """The project file: ``explicit`` (``--project``/``DBMETRICS_PROJECT``) or ``./dbmetrics.toml``."""
+    if explicit:
+        path = Path(explicit)
+        if not path.is_file():
+            raise DbmetricsError(f"--project: no project file at '{path}'")
+        return path
+    default = Path.cwd() / FILE_NAME
+    return default if default.is_file() else None
+
+
+def load(path: Path | None) -> Project:
+    """Read and check a project file; ``None`` gives an empty project."""
+    if path is None:
+        return Project()
+    data = _parse(path)
+    unknown = sorted(set(data) - _SETTINGS)
+    if unknown:
+        raise DbmetricsError(
+            f"{path}: unknown setting(s) {', '.join(unknown)}; "
+            f"known settings are: {', '.join(sorted(_SETTINGS))}")
+    base = path.parent
+    queries = _table(data, "queries", path)
+    return Project(
+        path=path,
+        database=_path_value(data.get("database"), base, "database", path),
+        query_dirs=tuple(_path_value(d, base, "query_dirs", path) for d in _list(data, "query_dirs", path)),
+        memory_limit=_scalar(data["memory_limit"], "memory_limit", path) if "memory_limit" in data else None,
+        threads=_threads(data.get("threads"), path),
+        params=_params(_table(data, "params", path), "params", path),
+        queries={name: _params(_table(queries, name, path), f"queries.{name}", path) for name in queries},
+    )
+
+
+def _parse(path: Path) -> dict:
+    try:
+        import tomllib
+    except ModuleNotFoundError:  # Python 3.10
+        try:
+            import tomli as tomllib
+        except ModuleNotFoundError:
+            raise DbmetricsError(
+                f"{path}: reading a project file needs Python 3.11+ or the 'tomli' package; "
+                "pip install tomli") from None
+    try:
+        with open(path, "rb") as f:
+            return tomllib.load(f)
+    except tomllib.TOMLDecodeError as e:
+        raise DbmetricsError(f"{path}: not valid TOML: {e}") from None
+
+
+def _table(data: dict, key: str, path: Path) -> dict:
+    value = data.get(key, {})
+    if not isinstance(value, dict):
+        raise DbmetricsError(f"{path}: '{key}' must be a table ([{key}]), got {type(value).__name__}")
+    return value
+
+
+def _list(data: dict, key: str, path: Path) -> list:
+    value = data.get(key, [])
+    if isinstance(value, str):
+        return [value]
+    if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
+        raise DbmetricsError(f"{path}: '{key}' must be a list of strings, got {value!r}")
+    return value
+
+
+def _path_value(value, base: Path, key: str, path: Path) -> str | None:
+    if value is None:
+        return None
+    if not isinstance(value, str):
+        raise DbmetricsError(f"{path}: '{key}' must be a string, got {value!r}")
+    if value == ":memory:":
+        return value
+    return str(base / os.path.expanduser(value))
+
+
+def _threads(value, path: Path) -> int | None:
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+        raise DbmetricsError(f"{path}: 'threads' must be a positive integer, got {value!r}")
+    return value
+
+
+def _params(table: dict, where: str, path: Path) -> dict[str, str]:
+    return {name: _scalar(value, f"{where}.{name}", path) for name, value in table.items()}
+
+
+def _scalar(value, where: str, path: Path) -> str:
+    """A TOML value as the string a query parameter takes."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (str, int, float)):
+        return str(value)
+    if isinstance(value, list) and all(isinstance(v, str) for v in value):
+        return ",".join(value)
+    raise DbmetricsError(
+        f"{path}: '{where}' must be a string, number, boolean or list of strings, got {value!r}")

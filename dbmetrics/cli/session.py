@@ -1,0 +1,80 @@
+"""What every command shares: settings from options, environment and project file, and the connection.
+
+Precedence: command-line option, then environment variable, then project file, then default.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+from dataclasses import dataclass
+from typing import Callable, TypeVar
+
+import click
+import duckdb
+
+import dbmetrics
+from dbmetrics.cli import progress
+from dbmetrics.cli.project import Project
+
+T = TypeVar("T")
+
+
+@dataclass
+class Session:
+    """Global options resolved once per invocation; holds the connection when opened."""
+
+    project: Project
+    database: str | None = None
+    memory_limit: str | None = None
+    threads: int | None = None
+    quiet: bool = False
+    verbose: bool = False
+    _con: duckdb.DuckDBPyConnection | None = None
+
+    @property
+    def query_dirs(self) -> list[str]:
+        """``DBMETRICS_QUERY_PATH`` folders, then the project's ``query_dirs``."""
+        env = [d for d in os.environ.get("DBMETRICS_QUERY_PATH", "").split(os.pathsep) if d]
+        return env + list(self.project.query_dirs)
+
+    @property
+    def show_progress(self) -> bool:
+        return not self.quiet and sys.stderr.isatty()
+
+    def connect(self) -> duckdb.DuckDBPyConnection:
+        """The connection, opened on first use with every dbmetrics function registered."""
+        if self._con is None:
+            database = self.database or self.project.database or ":memory:"
+            config = {}
+            memory_limit = self.memory_limit or self.project.memory_limit
+            threads = self.threads or self.project.threads
+            if memory_limit:
+                config["memory_limit"] = memory_limit
+            if threads:
+                config["threads"] = threads
+            self.info(f"database: {database}" + "".join(f", {k}={v}" for k, v in config.items()))
+            self._con = dbmetrics.connect(database, **config)
+            if self.show_progress:
+                progress.enable(self._con)
+        return self._con
+
+    def execute(self, call: Callable[[duckdb.DuckDBPyConnection], T]) -> T:
+        """``call(con)`` with progress on a terminal and Ctrl-C interrupting the query."""
+        con = self.connect()
+        return progress.run(con, lambda: call(con), sys.stderr if self.show_progress else None)
+
+    def close(self) -> None:
+        if self._con is not None:
+            self._con.close()
+            self._con = None
+
+    def info(self, message: str) -> None:
+        """A note on stderr under ``--verbose``."""
+        if self.verbose:
+            click.echo(message, err=True)
+
+    def note(self, message: str) -> None:
+        """A note on stderr unless ``--quiet``."""
+        if not self.quiet:
+            click.echo(message, err=True)

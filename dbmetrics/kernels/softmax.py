@@ -1,0 +1,94 @@
+"""Stable softmax family over the last axis of an (n, K) float64 array.
+
+    logsumexp(z)   = m + log(sum_j exp(z_j - m)),  m = max_j z_j
+    log_softmax(z) = z - logsumexp(z)
+    softmax(z)     = exp(log_softmax(z))
+
+Conventions: a -inf logit is a masked class (probability 0, log-probability -inf).
+A row with NaN or +inf, or whose classes are all masked, is undefined: NaN.
+"""
+
+import numpy as np
+
+
+SHORT_AXIS = 32
+
+
+def row_max(z: np.ndarray) -> np.ndarray:
+    """Row maxima, NaN-propagating (K >= 1).
+
+    numpy reduces a short last axis slowly; a loop over the K columns gives the
+    same values several times faster when K is small.
+    """
+    if z.shape[1] > SHORT_AXIS:
+        return z.max(axis=1)
+    m = z[:, 0].copy()
+    for j in range(1, z.shape[1]):
+        np.maximum(m, z[:, j], out=m)
+    return m
+
+
+def row_argmax(z: np.ndarray) -> np.ndarray:
+    """0-based index of the first row maximum (ties go to the lowest class), int32."""
+    if z.shape[1] > SHORT_AXIS:
+        return z.argmax(axis=1).astype(np.int32)
+    best = z[:, 0].copy()
+    idx = np.zeros(len(z), np.int32)
+    for j in range(1, z.shape[1]):
+        col = z[:, j]
+        idx[col > best] = j
+        np.maximum(best, col, out=best)
+    return idx
+
+
+def shifted(z: np.ndarray):
+    """(d, s, m, ok): m = row max, d = z - m, s = sum(exp(d)) >= 1, ok = row defined.
+
+    Undefined rows (m not finite) are shifted by 0 and must be masked by the caller.
+    """
+    m = row_max(z)
+    ok = np.isfinite(m)
+    m = np.where(ok, m, 0.0)
+    with np.errstate(invalid="ignore", over="ignore"):
+        d = z - m[:, None]
+        s = np.exp(d) @ np.ones(z.shape[1])
+    return d, s, m, ok
+
+
+def logsumexp(z: np.ndarray) -> np.ndarray:
+    """log(sum(exp(z))) per row; NaN for undefined rows.
+
+    >>> float(logsumexp(np.array([[1.0, 2.0, 3.0]]))[0])
+    3.40760596444438
+    """
+    _, s, m, ok = shifted(z)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = np.log(s) + m
+    out[~ok] = np.nan
+    return out
+
+
+def log_softmax(z: np.ndarray) -> np.ndarray:
+    """Log-probabilities per row; masked classes give -inf, undefined rows NaN.
+
+    >>> log_softmax(np.array([[1e4, -1e4, 0.0]])).tolist()
+    [[0.0, -20000.0, -10000.0]]
+    """
+    d, s, _, ok = shifted(z)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = d - np.log(s)[:, None]
+    out[~ok] = np.nan
+    return out
+
+
+def softmax(z: np.ndarray) -> np.ndarray:
+    """Probabilities per row (sum 1); masked classes give 0, undefined rows NaN.
+
+    >>> softmax(np.array([[0.0, -np.inf, 0.0]])).tolist()
+    [[0.5, 0.0, 0.5]]
+    """
+    d, s, _, ok = shifted(z)
+    with np.errstate(invalid="ignore", over="ignore"):
+        out = np.exp(d) / s[:, None]
+    out[~ok] = np.nan
+    return out

@@ -1,0 +1,154 @@
+"""Adapters that turn numpy kernels into Arrow-in / Arrow-out DuckDB UDF bodies.
+
+Each factory takes a kernel over float64 matrices and returns a function of
+pyarrow arrays. Structural errors (label out of range, class counts that differ
+between two lists) raise ValueError naming the SQL function and the bad value;
+value problems (NaN, not a distribution) give NULL.
+"""
+
+import numpy as np
+import pyarrow as pa
+
+from .arrow_lists import (booleans, doubles, float_column, integer_column, integers,
+                          list_of_doubles, score_matrix)
+from .kernels.predictions import calibration_bin
+from .kernels.row_stats import RowStats
+
+LOGITS_PAD, PROBS_PAD = -np.inf, 0.0
+
+
+def checked_labels(name: str, labels, sm) -> tuple[np.ndarray, np.ndarray]:
+    """Labels of the rows that can be scored; raises if one is outside [0, K)."""
+    y, y_present = integer_column(labels)
+    usable = y_present & sm.present
+    bad = usable & ((y < 0) | (y >= sm.lengths))
+    if bad.any():
+        i = int(np.argmax(bad))
+        raise ValueError(f"{name}: label {y[i]} is outside [0, {sm.lengths[i]}) for a row with "
+                         f"{sm.lengths[i]} classes (labels are 0-based class indices)")
+    return np.where(usable, y, 0), usable
+
+
+def same_lengths(name: str, a, b, what: str) -> None:
+    both = a.present & b.present
+    differ = both & (a.lengths != b.lengths)
+    if differ.any():
+        i = int(np.argmax(differ))
+        raise ValueError(f"{name}: scores have {a.lengths[i]} classes but {what} has "
+                         f"{b.lengths[i]} in the same row; both lists must have one entry per class")
+
+
+def lists_to_lists(kernel, pad):
+    def udf(scores):
+        sm = score_matrix(scores, pad)
+        out = kernel(sm.values)
+        return list_of_doubles(out, sm.lengths, ~sm.present | np.isnan(out[:, 0]))
+    return udf
+
+
+def lists_to_doubles(kernel, pad):
+    def udf(scores):
+        sm = score_matrix(scores, pad)
+        return doubles(kernel(sm.values), ~sm.present)
+    return udf
+
+
+def lists_to_class(kernel, pad):
+    def udf(scores):
+        sm = score_matrix(scores, pad)
+        undefined = np.isnan(sm.values).any(axis=1) | np.isposinf(sm.values).any(axis=1)
+        return integers(kernel(sm.values), ~sm.present | undefined)
+    return udf
+
+
+def lists_and_label_to_doubles(name, kernel, pad):
+    def udf(scores, labels):
+        sm = score_matrix(scores, pad)
+        y, usable = checked_labels(name, labels, sm)
+        return doubles(kernel(sm.values, y), ~usable)
+    return udf
+
+
+def two_lists_to_doubles(name, kernel, pad, what):
+    def udf(first, second):
+        a, b = score_matrix(first, pad), score_matrix(second, 0.0)
+        same_lengths(name, a, b, what)
+        k = max(a.values.shape[1], b.values.shape[1])
+        return doubles(kernel(widen(a.values, k, pad), widen(b.values, k, 0.0)),
+                       ~(a.present & b.present))
+    return udf
+
+
+def widen(mat: np.ndarray, k: int, pad: float) -> np.ndarray:
+    """Pad columns up to k (rows of another list may be longer in the same batch)."""
+    if mat.shape[1] == k:
+        return mat
+    return np.hstack([mat, np.full((len(mat), k - mat.shape[1]), pad)])
+
+
+def binary_logit_matrix(scores):
+    s, present = float_column(scores)
+    return np.column_stack([np.zeros_like(s), s]), present
+
+
+def binary_prob_matrix(scores):
+    p, present = float_column(scores)
+    return np.column_stack([1.0 - p, p]), present
+
+
+def binary_and_label_to_doubles(name, to_matrix, kernel):
+    def udf(scores, labels):
+        mat, present = to_matrix(scores)
+        y, y_present = integer_column(labels)
+        bad = present & y_present & ((y < 0) | (y > 1))
+        if bad.any():
+            raise ValueError(f"{name}: label {y[np.argmax(bad)]} is not 0 or 1 "
+                             "(binary labels mark the positive class with 1)")
+        return doubles(kernel(mat, np.where(bad, 0, y)), ~(present & y_present))
+    return udf
+
+
+def confidence_to_bin(conf, bins):
+    c, present = float_column(conf)
+    b, b_present = integer_column(bins)
+    if b_present.any() and (b[b_present] < 1).any():
+        raise ValueError(f"calibration_bin: bins must be a positive integer, got {b[b_present].min()}")
+    out = np.full(len(c), -1, np.int32)
+    for count in np.unique(b[b_present]):
+        rows = b_present & (b == count)
+        out[rows] = calibration_bin(c[rows], int(count))
+    return integers(out, ~(present & b_present) | (out < 0))
+
+
+ROW_STATS_TYPE = pa.struct([
+    ("score_issue", pa.int8()), ("label_issue", pa.int8()), ("classes", pa.int32()),
+    ("loss", pa.float64()), ("confidence", pa.float64()), ("predicted", pa.int32()),
+    ("correct", pa.bool_()), ("brier", pa.float64()), ("entropy", pa.float64()),
+    ("bin", pa.int32()),
+])
+
+
+def row_stats_struct(st: RowStats) -> pa.StructArray:
+    unscored = ~st.scored
+    unlabelled = ~st.labelled
+    fields = [
+        pa.array(st.score_issue, pa.int8()), pa.array(st.label_issue, pa.int8()),
+        integers(st.classes, st.classes == 0), doubles(st.loss), doubles(st.confidence),
+        integers(st.predicted, unscored), booleans(np.nan_to_num(st.correct), unlabelled),
+        doubles(st.brier), doubles(st.entropy), integers(st.bin, st.bin < 0),
+    ]
+    return pa.StructArray.from_arrays(fields, fields=list(ROW_STATS_TYPE))
+
+
+def row_stats_udf(kernel, pad):
+    def udf(scores, labels, bins):
+        sm = score_matrix(scores, pad)
+        y, y_present = integer_column(labels)
+        b, b_present = integer_column(bins)
+        counts = np.unique(b[b_present])
+        if len(counts) != 1 or counts[0] < 1:
+            raise ValueError(f"row statistics: bins must be one positive integer for the whole "
+                             f"query, got {counts.tolist() or 'NULL'}")
+        count = int(counts[0])
+        return row_stats_struct(kernel(sm.values, sm.present, sm.lengths, y, y_present, count))
+    return udf
