@@ -2,4 +2,5 @@
 
 from dbmetrics.cli.main import cli
 
-cli(prog_name="dbmetrics")
+if __name__ == "__main__":
+    cli(prog_name="dbmetrics")

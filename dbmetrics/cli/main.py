@@ -54,10 +54,7 @@ def cli(ctx, project_file, database, memory_limit, threads, quiet, verbose):
     """
     if quiet and verbose:
         raise click.UsageError("--quiet and --verbose exclude each other")
-    try:
-        settings = project.load(project.find(project_file))
-    except DbmetricsError as e:
-        raise click.ClickException(str(e)) from None
+    settings = project.load(project.find(project_file))
     session = Session(settings, database, memory_limit, threads, quiet, verbose)
     ctx.obj = session
     ctx.call_on_close(session.close)

@@ -6,11 +6,9 @@ import re
 
 import duckdb
 
-from dbmetrics.errors import DbmetricsError
-
 _KIND = re.compile(r"^(?:[A-Z][A-Za-z]*(?: [A-Z][A-Za-z]*)* Error: )+")
 _UDF = "Python exception occurred while executing the UDF: "
-_OWN = f"{DbmetricsError.__name__}: "
+_PYTHON_KIND = re.compile(r"^[A-Za-z_][\w.]*(?:Error|Exception): ")
 
 
 def one_line(error: BaseException) -> str:
@@ -33,6 +31,5 @@ def _duckdb(text: str) -> str:
             kept.append(line.strip())
     message = _KIND.sub("", " ".join(kept))
     if _UDF in message:
-        message = message.split(_UDF, 1)[1]
-        message = message[len(_OWN):] if message.startswith(_OWN) else message
+        message = _PYTHON_KIND.sub("", message.split(_UDF, 1)[1])
     return message

@@ -106,9 +106,10 @@ def _parquet(table: pa.Table, out: BinaryIO) -> None:
 
 
 def _json(table: pa.Table, out: BinaryIO) -> None:
-    rows = [_plain(row) for row in table.to_pylist()]
-    text = json.dumps(rows, indent=1, ensure_ascii=False, allow_nan=False, default=_default)
-    out.write(text.encode() + b"\n")
+    """An array with one record per line."""
+    rows = [json.dumps(_plain(row), ensure_ascii=False, allow_nan=False, default=_default)
+            for row in table.to_pylist()]
+    out.write(("[\n" + ",\n".join(rows) + "\n]\n" if rows else "[]\n").encode())
 
 
 def _plain(value):

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import sys
+
 import click
 import pyarrow as pa
 import pyarrow.compute as pc
@@ -40,9 +42,9 @@ def emit(session: Session, table: pa.Table, fmt: str | None, output: str | None,
     elif fmt == "parquet":
         raise DbmetricsError("--format parquet: binary output needs --output PATH")
     else:
-        stream = click.get_binary_stream("stdout")
-        encode(table, fmt, stream)
-        stream.flush()
+        sys.stdout.flush()
+        encode(table, fmt, sys.stdout.buffer)
+        sys.stdout.buffer.flush()
     if flagged:
         session.note(f"{flagged} flagged row{'s' if flagged > 1 else ''} in column '{flag_column}'")
         return EXIT_FLAGGED

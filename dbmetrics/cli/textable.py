@@ -7,11 +7,14 @@ import pyarrow as pa
 MAX_WIDTH = 40
 
 
-def render(table: pa.Table, count: bool = True) -> str:
-    """The table as aligned text with a header rule (and a row count); empty for no columns."""
+def render(table: pa.Table, count: bool = True, width: int | None = MAX_WIDTH) -> str:
+    """The table as aligned text with a header rule (and a row count); empty for no columns.
+
+    Cells longer than ``width`` characters are cut with an ellipsis.
+    """
     if table.num_columns == 0:
         return ""
-    columns = [[_cell(v) for v in col.to_pylist()] for col in table.columns]
+    columns = [[_cut(_cell(v), width) for v in col.to_pylist()] for col in table.columns]
     right = [_numeric(f.type) for f in table.schema]
     widths = [max([len(name)] + [len(c) for c in cells]) for name, cells in zip(table.column_names, columns)]
 
@@ -41,4 +44,8 @@ def _cell(value) -> str:
         text = "[" + ", ".join(_cell(v) for v in value) + "]"
     else:
         text = str(value).replace("\n", " ")
-    return text if len(text) <= MAX_WIDTH else text[: MAX_WIDTH - 1] + "…"
+    return text
+
+
+def _cut(text: str, width: int | None) -> str:
+    return text if width is None or len(text) <= width else text[: width - 1] + "…"

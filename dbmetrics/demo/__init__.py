@@ -1,4 +1,4 @@
 """Deterministic demo prediction logs for an invented return-reason classifier (see demo_parquet/README.md)."""
-from .generate import generate
+from .dataset import generate
 
 __all__ = ["generate"]

@@ -2,7 +2,7 @@
 import argparse
 import sys
 
-from .generate import DEFAULT_ROWS_PER_DAY, DEFAULT_SEED, DEFAULT_WEEKS, generate
+from .dataset import DEFAULT_ROWS_PER_DAY, DEFAULT_SEED, DEFAULT_WEEKS, generate
 
 
 def main(argv=None) -> None:

@@ -1,0 +1,52 @@
+"""``dbmetrics queries [NAME]``: list saved queries, or show one query's parameters."""
+
+from __future__ import annotations
+
+import click
+import pyarrow as pa
+
+from dbmetrics.cli.textable import render
+
+
+@click.command("queries")
+@click.argument("name", required=False)
+@click.pass_obj
+def command(session, name):
+    """List the saved queries (ours and your folders), or describe the query NAME.
+
+    \b
+    Example:
+      dbmetrics queries && dbmetrics queries rollup
+    """
+    from dbmetrics import templates
+
+    dirs = session.query_dirs
+    if name is None:
+        found = templates.list_queries(query_dirs=dirs)
+        listing = pa.table({
+            "query": [q.name for q in found],
+            "from": [str(q.origin) for q in found],
+            "description": [q.summary for q in found],
+        })
+        click.echo(render(listing, count=False), nl=False)
+        return
+    click.echo(_describe(templates.get_query(name, query_dirs=dirs)), nl=False)
+
+
+def _describe(info) -> str:
+    """Summary, file, a parameter table and the example."""
+    params = pa.table({
+        "parameter": [p.name for p in info.params],
+        "type": [str(p.type) for p in info.params],
+        "default": ["(required)" if p.required else _show(p.default) for p in info.params],
+        "meaning": [p.help for p in info.params],
+    })
+    parts = [f"{info.name}: {info.summary}", f"file: {info.path}", ""]
+    parts.append(render(params, count=False, width=None) if info.params else "(no parameters)\n")
+    if info.example:
+        parts += ["", "Example:", *("  " + line for line in str(info.example).splitlines())]
+    return "\n".join(parts).rstrip("\n") + "\n"
+
+
+def _show(default) -> str:
+    return "NULL" if default is None else str(default)

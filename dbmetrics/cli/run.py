@@ -1,0 +1,39 @@
+"""``dbmetrics run NAME``: run a saved query with parameters and write its result."""
+
+from __future__ import annotations
+
+import click
+
+from dbmetrics.cli.params import merge, parse_settings
+from dbmetrics.cli.results import emit, output_options
+
+
+@click.command("run")
+@click.argument("name")
+@click.option("--set", "-s", "settings", multiple=True, metavar="PARAM=VALUE",
+              help="A query parameter; repeat for more. Wins over the project file.")
+@output_options
+@click.pass_context
+def command(ctx, name, settings, fmt, output, flag_column):
+    """Run the saved query NAME and print or write its result.
+
+    Parameters come from --set, then the project file ([queries.NAME], then
+    [params]), then the query's defaults; `dbmetrics queries NAME` lists them.
+
+    \b
+    Example:
+      dbmetrics run drift --set logs='demo_parquet/logs/**/*.parquet' \\
+          --output drift.csv --fail-on-flag
+    """
+    from dbmetrics import templates
+
+    session = ctx.obj
+    cli_params = parse_settings(settings)
+    dirs = session.query_dirs
+    info = templates.get_query(name, query_dirs=dirs)
+    params = merge(name, [p.name for p in info.params], session.project, cli_params)
+    if session.verbose:
+        sql, bound = templates.render_query(session.connect(), name, params, query_dirs=dirs)
+        session.info(f"-- {info.path}\n{sql}\n-- bound: {bound}")
+    table = session.execute(lambda con: templates.run_query(con, name, params, query_dirs=dirs))
+    ctx.exit(emit(session, table, fmt, output, flag_column))

@@ -1,0 +1,53 @@
+"""Find saved queries: ours (dbmetrics/sql) and the user's, from folders passed in and from
+DBMETRICS_QUERY_PATH (os.pathsep-separated).
+
+A user's query may not reuse the name of a built-in one, nor two user folders hold the same
+name: either is an error that names both files (an override would silently change what a
+shared command means). Copy a built-in under a new name to change it.
+"""
+
+import os
+from pathlib import Path
+
+from dbmetrics.errors import DbmetricsError
+
+from .header import QueryInfo, parse_query
+
+BUILT_IN = Path(__file__).resolve().parent.parent / "sql"
+ENV_VAR = "DBMETRICS_QUERY_PATH"
+
+
+def user_dirs(query_dirs=None) -> list:
+    """Folders passed in, then those in DBMETRICS_QUERY_PATH; each must exist."""
+    env = [d for d in os.environ.get(ENV_VAR, "").split(os.pathsep) if d.strip()]
+    dirs = [Path(d).expanduser() for d in [*(query_dirs or []), *env]]
+    for d in dirs:
+        if not d.is_dir():
+            raise DbmetricsError(f"query folder `{d}` does not exist or is not a folder "
+                                 f"(from query_dirs or {ENV_VAR}); create it or drop it")
+    return dirs
+
+
+def list_queries(query_dirs=None) -> list:
+    """Every saved query, built-in first, then user folders in order; sorted by name within each."""
+    found = {}
+    sources = [(BUILT_IN, "built-in")] + [(d, "user") for d in user_dirs(query_dirs)]
+    for folder, origin in sources:
+        for path in sorted(folder.glob("*.sql")):
+            if path.resolve().parent == BUILT_IN and origin == "user":
+                continue
+            info = parse_query(path.read_text(encoding="utf-8"), path, origin)
+            if info.name in found:
+                raise DbmetricsError(
+                    f"query `{info.name}` is defined twice: {found[info.name].path} and {path}; "
+                    "rename the user query (built-in names cannot be overridden)")
+            found[info.name] = info
+    return list(found.values())
+
+
+def get_query(name: str, query_dirs=None) -> QueryInfo:
+    """The saved query called `name`, or an error listing the names that exist."""
+    queries = {q.name: q for q in list_queries(query_dirs)}
+    if name not in queries:
+        raise DbmetricsError(f"no saved query `{name}`; queries are: {', '.join(sorted(queries))}")
+    return queries[name]

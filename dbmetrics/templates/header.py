@@ -1,0 +1,200 @@
+"""Parse the comment header of a saved query into a QueryInfo.
+
+A saved query is one .sql file that opens with a header of `--` lines:
+
+    -- name: rollup
+    -- summary: One row per period x version x segment: volume, loss, accuracy.
+    -- param logs (source, required): the prediction log
+    -- param grain (choice(day|week|month), default week): period length
+    -- param classes (text): optional: no default, unset unless given
+    -- output rows: rows in the group
+    -- note: free text (conventions, formulas); several allowed
+    -- example: dbmetrics run rollup --set logs=logs/
+    --     (a line indented by three or more spaces continues the entry above)
+
+The body after the header is SQL with `$name` for bound values and `{{name}}` for rendered
+identifier fragments (see render.py); every name it uses must be declared in the header.
+"""
+
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from dbmetrics.errors import DbmetricsError
+
+TYPES = ("source", "column", "columns", "choice", "date", "number", "integer", "text")
+FRAGMENTS = ("state", "class_state", "segments", "segment_match")
+COLUMN_MAP = ("logs", "time_col", "scores_col", "scores_kind", "label_col", "version_col",
+              "segment_cols", "labels", "id_col", "classes", "bins")
+
+PARAM = re.compile(r"param\s+([a-z_][a-z0-9_]*)\s*\(([^()]*(?:\([^()]*\))?[^()]*)\)\s*:\s*(.+)")
+KEYED = re.compile(r"(name|summary|example|note|output\s+[A-Za-z_][A-Za-z0-9_]*)\s*:\s*(.*)")
+TYPE = re.compile(r"([a-z]+)(?:\((.*)\))?")
+CHOICES = re.compile(r"[a-z0-9_]+(?:\|[a-z0-9_]+)*")
+SOURCES = re.compile(r"[a-z_][a-z0-9_]*(?:\s*,\s*[a-z_][a-z0-9_]*)*")
+RANGE = re.compile(r"(-?[0-9.]+)?\.\.(-?[0-9.]+)?")
+NAME = re.compile(r"[a-z][a-z0-9_]*")
+SPEC = re.compile(r"(\w+\([^()]*\)|[^,]*)\s*(?:,(.*))?")
+BOUND = re.compile(r"\$([A-Za-z_][A-Za-z0-9_]*)")
+PLACEHOLDER = re.compile(r"\{\{\s*([^{}]*?)\s*\}\}")
+
+
+@dataclass(frozen=True)
+class Param:
+    """One declared parameter. `type` is the header text, e.g. "choice(day|week|month)".
+
+    kind: the base type; choices: for choice; sources: the source params a column(s) type
+    is checked against (default: logs); low/high: inclusive bounds of integer/number;
+    default: text as written, None when unset.
+    """
+    name: str
+    type: str
+    kind: str
+    help: str
+    default: str | None = None
+    required: bool = False
+    choices: tuple = ()
+    sources: tuple = ()
+    low: float | None = None
+    high: float | None = None
+
+
+@dataclass(frozen=True)
+class QueryInfo:
+    name: str
+    summary: str
+    path: Path
+    params: tuple
+    example: str
+    origin: str  # 'built-in' or 'user'
+    outputs: tuple = ()  # (column, meaning) pairs
+    notes: tuple = ()
+    body: str = field(default="", repr=False)
+
+    def param(self, name: str) -> Param:
+        return next(p for p in self.params if p.name == name)
+
+
+def parse_query(text: str, path: Path, origin: str) -> QueryInfo:
+    """Split `text` into header and body, check both, and describe the query."""
+    lines = text.splitlines()
+    header = []
+    for line in lines:
+        if not line.startswith("--"):
+            break
+        header.append(line)
+    body = "\n".join(lines[len(header):]).strip()
+    entries = header_entries(header, path)
+    fields, params, outputs, notes = {}, [], [], []
+    for key, value in entries:
+        if key.startswith("param "):
+            params.append(parse_param(key[len("param "):] + value, path))
+        elif key.startswith("output"):
+            outputs.append((key.split()[1], value))
+        elif key == "note":
+            notes.append(value)
+        elif key in fields:
+            raise DbmetricsError(f"{path}: header repeats `{key}:`; give it once")
+        else:
+            fields[key] = value
+    for key in ("name", "summary", "example"):
+        if not fields.get(key):
+            raise DbmetricsError(f"{path}: header lacks `-- {key}: ...`; every saved query "
+                                 "needs name, summary and example lines")
+    name = fields["name"]
+    if not NAME.fullmatch(name) or name != path.stem:
+        raise DbmetricsError(f"{path}: header name `{name}` must be lower-case letters, digits "
+                             f"and _ and match the file name `{path.stem}`")
+    names = [p.name for p in params]
+    if len(set(names)) != len(names):
+        raise DbmetricsError(f"{path}: a parameter is declared twice: {', '.join(names)}")
+    info = QueryInfo(name, fields["summary"], path, tuple(params), fields["example"], origin,
+                     tuple(outputs), tuple(notes), body)
+    check_body(info)
+    return info
+
+
+def header_entries(header: list, path: Path) -> list:
+    """(key, value) per header entry; indented lines continue the entry above."""
+    entries = []
+    for line in header:
+        text = line[2:]
+        if not text.strip():
+            continue
+        if text.startswith("   ") and entries:
+            key, value = entries[-1]
+            entries[-1] = (key, f"{value} {text.strip()}")
+            continue
+        text = text.strip()
+        if text.startswith("param "):
+            entries.append((text, ""))
+            continue
+        match = KEYED.fullmatch(text)
+        if not match:
+            raise DbmetricsError(f"{path}: header line `{line}` is not one of name:, summary:, "
+                                 "param NAME (TYPE...): , output NAME:, note:, example:")
+        entries.append((" ".join(match.group(1).split()), match.group(2).strip()))
+    return entries
+
+
+def parse_param(text: str, path: Path) -> Param:
+    """`NAME (TYPE[, default VALUE | required]): meaning` -> Param."""
+    match = PARAM.fullmatch(text.strip())
+    if not match:
+        raise DbmetricsError(f"{path}: cannot read `-- param {text}`; expected "
+                             "`-- param NAME (TYPE[, default VALUE | required]): meaning`")
+    name, spec, meaning = match.groups()
+    type_text, rest = (part.strip() for part in SPEC.fullmatch(spec.strip()).groups(""))
+    kind, arg = TYPE.fullmatch(type_text).groups() if TYPE.fullmatch(type_text) else (None, None)
+    parsers = {"choice": CHOICES, "column": SOURCES, "columns": SOURCES,
+               "integer": RANGE, "number": RANGE}
+    if kind not in TYPES or (arg is not None and not (kind in parsers
+                                                      and parsers[kind].fullmatch(arg))):
+        raise DbmetricsError(f"{path}: parameter `{name}` has unknown type `{type_text}`; types "
+                             f"are {', '.join(TYPES)}, with choice(a|b), column(source, ...), "
+                             "columns(source, ...), integer(lo..hi), number(lo..hi)")
+    if kind == "choice" and arg is None:
+        raise DbmetricsError(f"{path}: parameter `{name}`: choice needs its options, "
+                             "e.g. choice(day|week|month)")
+    default, required = None, False
+    if rest == "required":
+        required = True
+    elif rest.startswith("default "):
+        default = rest[len("default "):].strip()
+    elif rest:
+        raise DbmetricsError(f"{path}: parameter `{name}`: `{rest}` should be `default VALUE` "
+                             "or `required`")
+    choices = tuple(arg.split("|")) if kind == "choice" else ()
+    if kind == "choice" and default is not None and default not in choices:
+        raise DbmetricsError(f"{path}: parameter `{name}` defaults to `{default}`, "
+                             f"not one of {'|'.join(choices)}")
+    sources = tuple(s.strip() for s in arg.split(",")) if arg and kind in ("column", "columns") \
+        else ()
+    low, high = (float(x) if x else None for x in arg.split("..")) \
+        if arg and kind in ("integer", "number") else (None, None)
+    return Param(name, type_text, kind, meaning.strip(), default, required, choices, sources,
+                 low, high)
+
+
+def check_body(info: QueryInfo) -> None:
+    """Every `$name` and `{{name}}` in the body is declared; fragments need the column map."""
+    declared = {p.name: p for p in info.params}
+    for name in BOUND.findall(info.body):
+        if name not in declared:
+            raise DbmetricsError(f"{info.path}: the SQL uses ${name} but the header declares no "
+                                 f"parameter `{name}`; add `-- param {name} (TYPE...): meaning`")
+    for name in PLACEHOLDER.findall(info.body):
+        if name in FRAGMENTS:
+            missing = [p for p in COLUMN_MAP if p not in declared]
+            if missing:
+                raise DbmetricsError(f"{info.path}: {{{{{name}}}}} needs the column-map parameters "
+                                     f"declared; missing: {', '.join(missing)}")
+        elif name not in declared or declared[name].kind not in ("source", "column", "columns"):
+            raise DbmetricsError(
+                f"{info.path}: placeholder {{{{{name}}}}} is neither a declared source/column "
+                f"parameter nor one of the fragments {', '.join(FRAGMENTS)}")
+    for p in info.params:
+        unknown = [s for s in p.sources if s not in declared or declared[s].kind != "source"]
+        if unknown:
+            raise DbmetricsError(f"{info.path}: parameter `{p.name}` checks columns against "
+                                 f"`{', '.join(unknown)}`, which is not a declared source parameter")
