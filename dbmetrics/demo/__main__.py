@@ -1,6 +1,5 @@
 """``python -m dbmetrics.demo OUT_DIR``: write the demo dataset into OUT_DIR."""
 import argparse
-import sys
 
 from .dataset import DEFAULT_ROWS_PER_DAY, DEFAULT_SEED, DEFAULT_WEEKS, generate
 
@@ -21,4 +20,4 @@ def main(argv=None) -> None:
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    main()
