@@ -1,4 +1,7 @@
-"""The ``dbmetrics`` command group, its global options and its exit statuses."""
+"""The ``dbmetrics`` command group, its global options and its exit statuses.
+
+Each command is a module of this package exposing ``command``; add it to the tuple at the end.
+"""
 
 from __future__ import annotations
 
@@ -10,7 +13,6 @@ from dbmetrics.cli.messages import one_line
 from dbmetrics.cli.session import Session
 from dbmetrics.errors import DbmetricsError
 
-EXIT_ERROR = 1
 EXIT_INTERRUPTED = 130
 
 

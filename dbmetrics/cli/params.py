@@ -28,16 +28,14 @@ def parse_settings(settings: tuple[str, ...]) -> dict[str, str]:
 
 
 def merge(query: str, declared: list[str], project: Project, cli: dict[str, str]) -> dict[str, str]:
-    """Template defaults < project ``[params]`` < ``[queries.QUERY]`` < ``--set``; unknown names refused."""
-    where = f"{project.path} [queries.{query}]"
-    _check(query, declared, project.queries.get(query, {}), where)
-    _check(query, declared, cli, "--set")
-    return {**project.params_for(query, set(declared)), **cli}
+    """Template defaults < project ``[params]`` < ``[queries.QUERY]`` < ``--set``.
 
-
-def _check(query: str, declared: list[str], given: dict[str, str], where: str) -> None:
-    unknown = [name for name in given if name not in declared]
+    Unknown names in ``[queries.QUERY]`` are refused here, naming the file; the templates
+    refuse unknown ``--set`` names.
+    """
+    unknown = [name for name in project.queries.get(query, {}) if name not in declared]
     if unknown:
         raise DbmetricsError(
-            f"{where}: query '{query}' has no parameter '{unknown[0]}'; "
+            f"{project.path} [queries.{query}]: query '{query}' has no parameter '{unknown[0]}'; "
             f"its parameters are: {', '.join(declared) or '(none)'}")
+    return {**project.params_for(query, set(declared)), **cli}

@@ -29,20 +29,21 @@ def run(con: duckdb.DuckDBPyConnection, call: Callable[[], T], stream: TextIO | 
     On KeyboardInterrupt the query is interrupted and the interrupt re-raised.
     """
     box: dict = {}
+    done = threading.Event()  # not Thread.join(): a Ctrl-C inside it can mark a running thread stopped
 
     def work():
         try:
             box["value"] = call()
         except BaseException as e:  # handed to the caller's thread
             box["error"] = e
+        finally:
+            done.set()
 
-    worker = threading.Thread(target=work, name="dbmetrics-query", daemon=True)
     start = time.monotonic()
-    worker.start()
+    threading.Thread(target=work, name="dbmetrics-query", daemon=True).start()
     shown = False
     try:
-        while worker.is_alive():
-            worker.join(POLL)
+        while not done.wait(POLL):
             if stream is not None and time.monotonic() - start >= DELAY:
                 pct = con.query_progress()
                 if pct >= 0:
@@ -50,9 +51,8 @@ def run(con: duckdb.DuckDBPyConnection, call: Callable[[], T], stream: TextIO | 
                     stream.flush()
                     shown = True
     except KeyboardInterrupt:
-        while worker.is_alive():  # a call may run several statements
+        while not done.wait(POLL):  # a call may run several statements
             con.interrupt()
-            worker.join(POLL)
         raise
     finally:
         if shown:

@@ -28,25 +28,29 @@ def command(session, name):
             "from": [str(q.origin) for q in found],
             "description": [q.summary for q in found],
         })
-        click.echo(render(listing, count=False), nl=False)
+        click.echo(render(listing, count=False, width=None), nl=False)
         return
     click.echo(_describe(templates.get_query(name, query_dirs=dirs)), nl=False)
 
 
 def _describe(info) -> str:
-    """Summary, file, a parameter table and the example."""
+    """Summary, file, parameters, output columns, notes and the example, from the header."""
     params = pa.table({
         "parameter": [p.name for p in info.params],
         "type": [str(p.type) for p in info.params],
         "default": ["(required)" if p.required else _show(p.default) for p in info.params],
         "meaning": [p.help for p in info.params],
     })
-    parts = [f"{info.name}: {info.summary}", f"file: {info.path}", ""]
+    parts = [f"{info.name}: {info.summary}\nfile: {info.path}\n"]
     parts.append(render(params, count=False, width=None) if info.params else "(no parameters)\n")
-    if info.example:
-        parts += ["", "Example:", *("  " + line for line in str(info.example).splitlines())]
-    return "\n".join(parts).rstrip("\n") + "\n"
+    if info.outputs:
+        outputs = pa.table({"column": [c for c, _ in info.outputs], "meaning": [m for _, m in info.outputs]})
+        parts.append("Output columns:\n" + render(outputs, count=False, width=None))
+    if info.notes:
+        parts.append("Notes:\n" + "".join(f"  {note}\n" for note in info.notes))
+    parts.append("Example:\n" + "".join(f"  {line}\n" for line in str(info.example).splitlines()))
+    return "\n".join(parts)
 
 
 def _show(default) -> str:
-    return "NULL" if default is None else str(default)
+    return "(unset)" if default is None else str(default)

@@ -22,8 +22,8 @@ def command(ctx, name, settings, fmt, output, flag_column):
 
     \b
     Example:
-      dbmetrics run drift --set logs='demo_parquet/logs/**/*.parquet' \\
-          --output drift.csv --fail-on-flag
+      dbmetrics run drift --set logs=demo_parquet/logs --set id_col=prediction_id \\
+          --set labels=demo_parquet/labels/labels.parquet --output drift.csv --fail-on-flag
     """
     from dbmetrics import templates
 

@@ -5,7 +5,6 @@ Precedence: command-line option, then environment variable, then project file, t
 
 from __future__ import annotations
 
-import os
 import sys
 from dataclasses import dataclass
 from typing import Callable, TypeVar
@@ -34,9 +33,8 @@ class Session:
 
     @property
     def query_dirs(self) -> list[str]:
-        """``DBMETRICS_QUERY_PATH`` folders, then the project's ``query_dirs``."""
-        env = [d for d in os.environ.get("DBMETRICS_QUERY_PATH", "").split(os.pathsep) if d]
-        return env + list(self.project.query_dirs)
+        """The project's query folders (the templates add ``DBMETRICS_QUERY_PATH`` themselves)."""
+        return list(self.project.query_dirs)
 
     @property
     def show_progress(self) -> bool:
