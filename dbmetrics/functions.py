@@ -13,7 +13,7 @@ from duckdb.sqltypes import BIGINT, BOOLEAN, DOUBLE, INTEGER
 from .kernels import distributions as dist
 from .kernels import losses, predictions, row_stats, softmax
 from .udf_adapters import (LOGITS_PAD, PROBS_PAD, ROW_STATS_TYPE, binary_and_label_to_doubles,
-                           binary_logit_matrix, binary_prob_matrix, confidence_to_bin,
+                           binary_logit_loss, binary_logit_matrix, binary_prob_matrix, confidence_to_bin, correct_class,
                            lists_and_label_to_doubles, lists_to_class, lists_to_doubles,
                            lists_to_lists, row_stats_udf, two_lists_to_doubles)
 
@@ -70,7 +70,7 @@ FUNCTIONS = (
                 "-sum target * log probs"),
     SqlFunction("binary_cross_entropy", (DOUBLE, BIGINT), DOUBLE,
                 binary_and_label_to_doubles("binary_cross_entropy", binary_logit_matrix,
-                                            losses.cross_entropy_logits),
+                                            binary_logit_loss),
                 "log-loss of one logit (log-odds of class 1) against a 0/1 label"),
     SqlFunction("binary_cross_entropy_prob", (DOUBLE, BIGINT), DOUBLE,
                 binary_and_label_to_doubles("binary_cross_entropy_prob", binary_prob_matrix,
@@ -112,8 +112,7 @@ FUNCTIONS = (
                 lists_to_doubles(probs(predictions.margin), PROBS_PAD),
                 "top-1 minus top-2 probability"),
     SqlFunction("is_correct", (SCORES, BIGINT), BOOLEAN,
-                lists_and_label_to_doubles("is_correct", lambda z, y: (
-                    predictions.predicted_class(z) == y).astype(float), LOGITS_PAD),
+                correct_class("is_correct", LOGITS_PAD),
                 "predicted_class(scores) = label"),
     SqlFunction("brier_score", (SCORES, BIGINT), DOUBLE,
                 lists_and_label_to_doubles("brier_score", of_softmax(losses.brier_score), LOGITS_PAD),

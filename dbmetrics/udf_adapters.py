@@ -11,7 +11,8 @@ import pyarrow as pa
 
 from .arrow_lists import (booleans, doubles, float_column, integer_column, integers,
                           list_of_doubles, score_matrix)
-from .kernels.predictions import calibration_bin
+from .kernels.predictions import calibration_bin, predicted_class
+from .kernels.softmax import row_max
 from .kernels.row_stats import RowStats
 
 LOGITS_PAD, PROBS_PAD = -np.inf, 0.0
@@ -53,11 +54,24 @@ def lists_to_doubles(kernel, pad):
     return udf
 
 
+def undefined_rows(values: np.ndarray) -> np.ndarray:
+    """Rows with no defined prediction: NaN, +inf, or every class -inf."""
+    return ~np.isfinite(row_max(values))
+
+
 def lists_to_class(kernel, pad):
     def udf(scores):
         sm = score_matrix(scores, pad)
-        undefined = np.isnan(sm.values).any(axis=1) | np.isposinf(sm.values).any(axis=1)
-        return integers(kernel(sm.values), ~sm.present | undefined)
+        return integers(kernel(sm.values), ~sm.present | undefined_rows(sm.values))
+    return udf
+
+
+def correct_class(name, pad):
+    def udf(scores, labels):
+        sm = score_matrix(scores, pad)
+        y, usable = checked_labels(name, labels, sm)
+        out = predicted_class(sm.values) == y
+        return booleans(out, ~usable | undefined_rows(sm.values))
     return udf
 
 
@@ -87,12 +101,26 @@ def widen(mat: np.ndarray, k: int, pad: float) -> np.ndarray:
 
 
 def binary_logit_matrix(scores):
+    """[0, s]: the two-class logits of one log-odds score s."""
     s, present = float_column(scores)
     return np.column_stack([np.zeros_like(s), s]), present
 
 
+def binary_logit_loss(mat: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """log(1 + exp(-s)) for y = 1, log(1 + exp(s)) for y = 0, accurate for tiny losses
+    (numpy.logaddexp uses log1p); +inf logit -> NaN as for any list of logits."""
+    s = mat[:, 1]
+    with np.errstate(invalid="ignore"):
+        out = np.logaddexp(0.0, np.where(y == 1, -s, s))
+    out[np.isnan(s) | np.isposinf(s)] = np.nan
+    return out
+
+
 def binary_prob_matrix(scores):
+    """[1 - p, p]; a p outside [0, 1] (or NaN) gives a NaN row."""
     p, present = float_column(scores)
+    with np.errstate(invalid="ignore"):
+        p = np.where((p >= 0.0) & (p <= 1.0), p, np.nan)
     return np.column_stack([1.0 - p, p]), present
 
 

@@ -21,7 +21,7 @@ def as_distribution(p: np.ndarray, tolerance: float = SUM_TOLERANCE) -> np.ndarr
     >>> as_distribution(np.array([[0.2, 0.8], [0.5, 0.6]])).tolist()
     [[0.2, 0.8], [nan, nan]]
     """
-    total = p @ np.ones(p.shape[1])
+    total = p.sum(axis=1)
     with np.errstate(invalid="ignore"):
         ok = np.isfinite(total) & (np.abs(total - 1.0) <= tolerance) & ~(p < 0).any(axis=1)
         out = p / np.where(ok, total, np.nan)[:, None]
@@ -39,10 +39,11 @@ def normalised(counts: np.ndarray) -> np.ndarray:
 def xlogy_ratio(p: np.ndarray, q: np.ndarray) -> np.ndarray:
     """Elementwise p log(p/q) with 0 where p = 0 (q >= 0), +inf where q = 0 < p.
 
-    Same convention as scipy.special.rel_entr.
+    Same convention as scipy.special.rel_entr; log p - log q cannot overflow as p/q can
+    when q is subnormal.
     """
     with np.errstate(divide="ignore", invalid="ignore"):
-        terms = p * np.log(p / q)
+        terms = p * (np.log(p) - np.log(q))
     terms[p == 0] = 0.0
     return terms
 

@@ -30,7 +30,7 @@ def margin(p: np.ndarray) -> np.ndarray:
     [0.2]
     """
     if p.shape[1] == 1:
-        return np.ones(len(p))
+        return np.where(np.isnan(p[:, 0]), np.nan, 1.0)
     top2 = np.partition(p, p.shape[1] - 2, axis=1)[:, -2:]
     return top2[:, 1] - top2[:, 0]
 

@@ -134,7 +134,7 @@ def prob_row_stats(p, present, lengths, y, y_present, bins) -> RowStats:
     is not a distribution. loss = -log p_y, confidence = max p, entropy = -sum p log p.
     """
     pt = transposed(p)
-    total = pt.sum(axis=0)
+    total = p.sum(axis=1)  # the same summation order as as_distribution
     finite = np.isfinite(total)
     with np.errstate(invalid="ignore"):
         is_dist = finite & (np.abs(total - 1.0) <= SUM_TOLERANCE) & (pt.min(axis=0) >= 0)

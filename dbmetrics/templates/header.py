@@ -13,7 +13,9 @@ A saved query is one .sql file that opens with a header of `--` lines:
     --     (a line indented by three or more spaces continues the entry above)
 
 The body after the header is SQL with `$name` for bound values and `{{name}}` for rendered
-identifier fragments (see render.py); every name it uses must be declared in the header.
+fragments: a declared source/column parameter (quoted), a column-map fragment (prelude.py),
+or `{{query:NAME}}`, another saved query's body rendered with the same parameters. Every
+`$name` and parameter placeholder must be declared in the header.
 """
 
 import re
@@ -23,7 +25,7 @@ from pathlib import Path
 from dbmetrics.errors import DbmetricsError
 
 TYPES = ("source", "column", "columns", "choice", "date", "number", "integer", "text")
-FRAGMENTS = ("state", "class_state", "segments", "segment_match")
+FRAGMENTS = ("state", "class_state", "segments", "segment_match")  # see prelude.fragments
 COLUMN_MAP = ("logs", "time_col", "scores_col", "scores_kind", "label_col", "version_col",
               "segment_cols", "labels", "id_col", "classes", "bins")
 
@@ -88,7 +90,7 @@ def parse_query(text: str, path: Path, origin: str) -> QueryInfo:
     fields, params, outputs, notes = {}, [], [], []
     for key, value in entries:
         if key.startswith("param "):
-            params.append(parse_param(key[len("param "):] + value, path))
+            params.append(parse_param(key + value, path))
         elif key.startswith("output"):
             outputs.append((key.split()[1], value))
         elif key == "note":
@@ -141,7 +143,7 @@ def parse_param(text: str, path: Path) -> Param:
     """`NAME (TYPE[, default VALUE | required]): meaning` -> Param."""
     match = PARAM.fullmatch(text.strip())
     if not match:
-        raise DbmetricsError(f"{path}: cannot read `-- param {text}`; expected "
+        raise DbmetricsError(f"{path}: cannot read `-- {text}`; expected "
                              "`-- param NAME (TYPE[, default VALUE | required]): meaning`")
     name, spec, meaning = match.groups()
     type_text, rest = (part.strip() for part in SPEC.fullmatch(spec.strip()).groups(""))
@@ -184,6 +186,8 @@ def check_body(info: QueryInfo) -> None:
             raise DbmetricsError(f"{info.path}: the SQL uses ${name} but the header declares no "
                                  f"parameter `{name}`; add `-- param {name} (TYPE...): meaning`")
     for name in PLACEHOLDER.findall(info.body):
+        if name.startswith("query:") and NAME.fullmatch(name[len("query:"):]):
+            continue  # another saved query, rendered with these parameters (checked then)
         if name in FRAGMENTS:
             missing = [p for p in COLUMN_MAP if p not in declared]
             if missing:

@@ -1,0 +1,74 @@
+-- name: rollup
+-- summary: One row per period x version x segment: volume, label coverage, cross-entropy (with standard error), perplexity, accuracy, Brier, ECE, entropy, and the rows that could not be scored, by reason.
+-- param logs (source, required): prediction log: a Parquet file, glob or (hive-partitioned) folder, or a table/view name
+-- param time_col (column, default ts): prediction time, DATE or TIMESTAMP; its day is CAST(time AS DATE)
+-- param scores_col (column, default logits): the model's scores: a numeric list per row (one number for binary_* kinds)
+-- param scores_kind (choice(logits|probs|binary_logit|binary_prob), default logits): logits (softmax taken) or probabilities (checked, renormalised); binary_logit s -> [0, s], binary_prob p -> [1-p, p]
+-- param label_col (column, default label): true class: 0-based index, or a name listed in classes; NULL = not yet labelled; empty = no labels
+-- param version_col (column, default model_version): model version column
+-- param segment_cols (columns): comma-separated segment columns to group by (none by default)
+-- param grain (choice(day|week|month), default week): period length; weeks start on Monday
+-- param labels (source): separate label table (path or table) joined on id_col; its label_col holds the labels
+-- param id_col (column): prediction id present in both logs and labels (needed with labels)
+-- param classes (text): class names in class-index order, comma-separated, for labels stored as text; an unknown name is a bad label
+-- param bins (integer(1..1000), default 15): equal-width confidence bins, bin m holds m/B < c <= (m+1)/B (0 in bin 0)
+-- output period: first day of the period (date_trunc of grain; Monday for weeks)
+-- output rows: prediction rows
+-- output labelled_rows: rows whose label is not NULL (inline or joined), valid or not
+-- output label_coverage: labelled_rows / rows
+-- output evaluated_rows: n, rows with usable scores, a label in [0, K) and finite loss; the rows every labelled metric averages over
+-- output cross_entropy: mean -log p(label) in nats over evaluated rows
+-- output cross_entropy_se: standard error of that mean, sqrt(s^2 / n) with the sample variance s^2 (n - 1) from the sum and sum of squares; NULL for n < 2
+-- output perplexity: exp(cross_entropy)
+-- output accuracy: share of evaluated rows whose predicted class (first maximum) is the label
+-- output brier: mean multi-class Brier score sum_j (p_j - [j = label])^2, range [0, 2]
+-- output ece: sum over confidence bins of |correct - sum of confidence| / n = sum_b n_b/n |acc_b - conf_b| (top-label, evaluated rows, empty bins contribute 0)
+-- output mean_confidence: mean top-label probability over scored rows (label-free)
+-- output mean_entropy: mean Shannon entropy (nats) of the predicted distribution over scored rows (label-free)
+-- output missing_scores: rows whose scores are NULL or empty
+-- output invalid_scores: rows whose scores are unusable (NaN, +inf logit, all classes masked, probabilities not a distribution)
+-- output bad_labels: scored rows with a label outside [0, K), a class name not in classes, or conflicting late labels
+-- output infinite_loss_rows: scored, validly labelled rows whose true class has probability 0 (counted, never averaged in)
+-- note: rows = missing_scores + invalid_scores + scored rows; scored rows = unlabelled + bad_labels + infinite_loss_rows + evaluated_rows.
+-- example: dbmetrics run rollup --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set segment_cols=region --set grain=month
+WITH
+state AS (
+    {{state}}
+),
+-- The additive state summed to period x version x segment x confidence bin; the bin's
+-- calibration gap |correct - sum of confidence| is taken here, before bins are summed.
+by_bin AS (
+    SELECT date_trunc($grain, day)::DATE AS period, {{version_col}}{{segments}}, bin,
+           sum(COLUMNS(* EXCLUDE (day, bin, {{version_col}}{{segments}}))),
+           abs(sum(correct_rows) - sum(sum_confidence_evaluated)) AS calibration_gap
+    FROM state
+    GROUP BY ALL
+),
+totals AS (
+    SELECT period, {{version_col}}{{segments}},
+           sum(COLUMNS(* EXCLUDE (period, bin, {{version_col}}{{segments}})))
+    FROM by_bin
+    GROUP BY ALL
+)
+SELECT
+    period, {{version_col}}{{segments}},
+    rows::BIGINT AS rows,
+    labelled_rows::BIGINT AS labelled_rows,
+    labelled_rows / rows AS label_coverage,
+    evaluated_rows::BIGINT AS evaluated_rows,
+    sum_loss / nullif(evaluated_rows, 0) AS cross_entropy,
+    CASE WHEN evaluated_rows > 1 THEN
+        sqrt(greatest(sum_loss_sq - sum_loss * sum_loss / evaluated_rows, 0)
+             / (evaluated_rows - 1) / evaluated_rows) END AS cross_entropy_se,
+    exp(sum_loss / nullif(evaluated_rows, 0)) AS perplexity,
+    correct_rows / nullif(evaluated_rows, 0) AS accuracy,
+    sum_brier / nullif(evaluated_rows, 0) AS brier,
+    calibration_gap / nullif(evaluated_rows, 0) AS ece,
+    sum_confidence / nullif(scored_rows, 0) AS mean_confidence,
+    sum_entropy / nullif(scored_rows, 0) AS mean_entropy,
+    missing_scores::BIGINT AS missing_scores,
+    invalid_scores::BIGINT AS invalid_scores,
+    bad_labels::BIGINT AS bad_labels,
+    infinite_loss_rows::BIGINT AS infinite_loss_rows
+FROM totals
+ORDER BY ALL

@@ -1,0 +1,34 @@
+-- name: segments
+-- summary: The rollup beside a business segment table (revenue, customer tier, ...): one row per period x version x segment, the table's columns joined on the segment columns.
+-- param business (source, required): business segment table: a Parquet or CSV file, or a table/view name, with one row per segment
+-- param logs (source, required): prediction log: a Parquet file, glob or (hive-partitioned) folder, or a table/view name
+-- param time_col (column, default ts): prediction time, DATE or TIMESTAMP; its day is CAST(time AS DATE)
+-- param scores_col (column, default logits): the model's scores: a numeric list per row (one number for binary_* kinds)
+-- param scores_kind (choice(logits|probs|binary_logit|binary_prob), default logits): logits (softmax taken) or probabilities (checked, renormalised); binary_logit s -> [0, s], binary_prob p -> [1-p, p]
+-- param label_col (column, default label): true class: 0-based index, or a name listed in classes; NULL = not yet labelled; empty = no labels
+-- param version_col (column, default model_version): model version column
+-- param segment_cols (columns(logs, business), required): comma-separated segment columns: the rollup groups by them and the business table is joined on them
+-- param grain (choice(day|week|month), default week): period length; weeks start on Monday
+-- param labels (source): separate label table (path or table) joined on id_col; its label_col holds the labels
+-- param id_col (column): prediction id present in both logs and labels (needed with labels)
+-- param classes (text): class names in class-index order, comma-separated, for labels stored as text; an unknown name is a bad label
+-- param bins (integer(1..1000), default 15): equal-width confidence bins, bin m holds m/B < c <= (m+1)/B (0 in bin 0)
+-- output period: first day of the period
+-- output rows: then every other rollup column, as documented in the rollup query
+-- note: after the rollup columns come the business table's other columns, NULL for segments it lacks.
+-- note: a segment key that appears in more than one business row is an error; the result may not repeat a column name.
+-- example: dbmetrics run segments --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set segment_cols=region --set business=demo_parquet/regions.csv --set grain=month
+WITH
+rollup AS (
+    {{query:rollup}}
+),
+business AS (
+    SELECT * FROM {{business}}
+    QUALIFY CASE WHEN count(*) OVER (PARTITION BY {{segment_cols}}) > 1
+                 THEN error('business: a segment appears in more than one row; give one row per segment')
+                 ELSE true END
+)
+SELECT rollup.*, business.* EXCLUDE ({{segment_cols}})
+FROM rollup
+LEFT JOIN business USING ({{segment_cols}})
+ORDER BY ALL

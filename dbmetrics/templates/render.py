@@ -1,0 +1,81 @@
+"""Render a saved query: check every parameter, fill {{placeholders}}, collect bound values.
+
+Identifiers come from the schema (quoted); every other value is bound as `$name`. No
+parameter text is ever pasted into SQL.
+"""
+
+import re
+
+import duckdb
+
+from dbmetrics.errors import DbmetricsError
+
+from .catalog import get_query
+from .header import BOUND, COLUMN_MAP, PLACEHOLDER, QueryInfo
+from .prelude import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS, column_map, fragments
+from .schema import open_source, quote
+from .values import convert, split_names, with_defaults
+
+
+ALIAS = re.compile(r"\bAS\s+([a-z_][a-z0-9_]*)\b")  # lower-case aliases; SQL types are upper-case
+
+
+def render_query(con: duckdb.DuckDBPyConnection, name: str, params: dict,
+                 query_dirs=None) -> tuple:
+    """(sql, bound): the query's SQL and the values for exactly the `$names` it uses."""
+    info = get_query(name, query_dirs)
+    included = [get_query(n[len("query:"):], query_dirs)
+                for n in PLACEHOLDER.findall(info.body) if n.startswith("query:")]
+    for inner in included:
+        missing = [p.name for p in inner.params if p.name not in {q.name for q in info.params}]
+        if missing:
+            raise DbmetricsError(f"{info.path}: includes query `{inner.name}`, whose parameters "
+                                 f"{', '.join(missing)} it does not declare")
+    return render_info(con, info, params, {f"query:{q.name}": q for q in included})
+
+
+def render_info(con, info: QueryInfo, params: dict, included: dict) -> tuple:
+    texts = with_defaults(info, params)
+    values = {p.name: convert(p, texts[p.name]) for p in info.params
+              if p.kind not in ("source", "column", "columns")}
+    sources = {p.name: open_source(con, p.name, texts[p.name]) for p in info.params
+               if p.kind == "source" and texts[p.name] is not None}
+    filled = {}
+    if all(p in texts for p in COLUMN_MAP):
+        queries = [info, *included.values()]
+        reserved = set(STATE_COLUMNS + CLASS_STATE_COLUMNS + INTERNAL) | {
+            out.lower() for q in queries for out, _ in q.outputs} | {
+            alias for q in queries for alias in ALIAS.findall(q.body)}
+        filled.update(fragments(column_map(texts, sources, reserved)))
+    for p in info.params:
+        if p.kind == "source" and p.name in sources:
+            filled[p.name] = sources[p.name].sql
+            values.update(sources[p.name].bound)
+        elif p.kind in ("column", "columns") and (p.name not in filled or p.sources):
+            filled[p.name] = checked_columns(p, texts[p.name], sources)
+    for key, inner in included.items():
+        filled[key] = PLACEHOLDER.sub(lambda m: fill(m.group(1), filled, inner), inner.body)
+    sql = PLACEHOLDER.sub(lambda m: fill(m.group(1), filled, info), info.body)
+    return sql, {n: values[n] for n in dict.fromkeys(BOUND.findall(sql))}
+
+
+def checked_columns(p, text, sources) -> str:
+    """Quoted column name(s), each present in every source the type names (default logs)."""
+    names = split_names(text)
+    if p.kind == "column" and len(names) > 1:
+        raise DbmetricsError(f"{p.name}: expects one column; got `{text}`")
+    quoted = []
+    for name in names:
+        wanted = p.sources or ("logs",)
+        if not all(s in sources for s in wanted):
+            raise DbmetricsError(f"{p.name}: names columns of {', '.join(wanted)}; "
+                                 "set that source parameter too")
+        quoted.append(quote([sources[s].column(name, p.name) for s in wanted][0]))
+    return ", ".join(quoted)
+
+
+def fill(name: str, filled: dict, info: QueryInfo) -> str:
+    if name not in filled:
+        raise DbmetricsError(f"{info.path}: placeholder {{{{{name}}}}} has no value; "
+                             f"set parameter `{name}`")
+    return filled[name]

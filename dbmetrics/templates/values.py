@@ -1,0 +1,78 @@
+"""Turn parameter text (as it arrives from the CLI) into checked values.
+
+Only value types live here; sources and columns are checked against the data (schema.py).
+"""
+
+import datetime as dt
+import math
+import re
+
+from dbmetrics.errors import DbmetricsError
+
+from .header import Param, QueryInfo
+
+INTEGER = re.compile(r"[+-]?[0-9]+")
+NUMBER = re.compile(r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?")
+
+
+def with_defaults(info: QueryInfo, params: dict) -> dict:
+    """Every declared parameter -> its text: as given, else its default, else None.
+
+    Empty text given means "none" (e.g. label_col= for label-free logs), not the default.
+    Unknown names and missing required parameters are errors.
+    """
+    declared = {p.name: p for p in info.params}
+    unknown = sorted(set(params) - set(declared))
+    if unknown:
+        raise DbmetricsError(f"query `{info.name}` has no parameter {', '.join(unknown)}; "
+                             f"its parameters are: {', '.join(declared)}")
+    texts = {}
+    for p in info.params:
+        given = params.get(p.name)
+        text = p.default if given is None else (str(given).strip() or None)
+        if text is None and p.required:
+            raise DbmetricsError(f"query `{info.name}` needs parameter `{p.name}` ({p.help}); "
+                                 f"pass --set {p.name}=...")
+        texts[p.name] = text
+    return texts
+
+
+def convert(p: Param, text: str | None):
+    """The value bound for `$name`: int, float, date, or str; None stays None (SQL NULL)."""
+    if text is None:
+        return None
+    if p.kind == "integer":
+        if not INTEGER.fullmatch(text):
+            raise DbmetricsError(f"parameter `{p.name}` expects a whole number; got `{text}`")
+        return in_range(p, int(text))
+    if p.kind == "number":
+        if not NUMBER.fullmatch(text) or not math.isfinite(float(text)):
+            raise DbmetricsError(f"parameter `{p.name}` expects a number such as 0.25; "
+                                 f"got `{text}`")
+        return in_range(p, float(text))
+    if p.kind == "date":
+        try:
+            return dt.date.fromisoformat(text)
+        except ValueError:
+            raise DbmetricsError(f"parameter `{p.name}` expects a date YYYY-MM-DD; "
+                                 f"got `{text}`") from None
+    if p.kind == "choice" and text not in p.choices:
+        raise DbmetricsError(f"parameter `{p.name}` must be one of {', '.join(p.choices)}; "
+                             f"got `{text}`")
+    return text
+
+
+def in_range(p: Param, value):
+    if (p.low is not None and value < p.low) or (p.high is not None and value > p.high):
+        bounds = f"{'' if p.low is None else fmt(p.low)}..{'' if p.high is None else fmt(p.high)}"
+        raise DbmetricsError(f"parameter `{p.name}` must lie in {bounds}; got {value}")
+    return value
+
+
+def fmt(x: float) -> str:
+    return str(int(x)) if x == int(x) else str(x)
+
+
+def split_names(text: str | None) -> list:
+    """`a, b` -> ['a', 'b']; None -> []."""
+    return [part.strip() for part in (text or "").split(",") if part.strip()]
