@@ -1,0 +1,1 @@
+"""dbmetrics benchmark: `python -m bench --help`; see bench/README.md."""
