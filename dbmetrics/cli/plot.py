@@ -1,0 +1,140 @@
+"""``dbmetrics plot reliability|trend``: run a saved query and draw its result as a PNG file.
+
+The drawing lives in ``dbmetrics.plots``; this module gathers parameters the way ``run`` does
+(--set, then the project file, then the query's defaults), runs the query and writes the PNG atomically.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from dbmetrics.cli.output import atomic_write
+from dbmetrics.cli.params import merge, parse_settings
+
+
+def _plot_options(command):
+    """--set, --by, --only, --start, --end, --title and --output."""
+    for option in reversed([
+        click.option("--set", "-s", "settings", multiple=True, metavar="PARAM=VALUE",
+                     help="A query parameter; repeat for more. Wins over the project file."),
+        click.option("--by", metavar="COLUMN",
+                     help="One curve per value of this column: the version column (default) or a segment "
+                          "column (added to segment_cols when missing)."),
+        click.option("--only", multiple=True, metavar="COLUMN=VALUE", callback=_pairs,
+                     help="Keep result rows whose COLUMN equals VALUE; repeat for more. A segment "
+                          "column is added to segment_cols when missing."),
+        click.option("--start", type=click.DateTime(["%Y-%m-%d"]), metavar="DATE",
+                     help="Keep periods whose first day is on or after DATE."),
+        click.option("--end", type=click.DateTime(["%Y-%m-%d"]), metavar="DATE",
+                     help="Keep periods whose first day is on or before DATE."),
+        click.option("--title", help="Title instead of the generated one."),
+        click.option("--output", "-o", required=True, metavar="FILE.png", callback=_png_path,
+                     help="PNG file to write (atomically: the old file stays until the new one is complete)."),
+    ]):
+        command = option(command)
+    return command
+
+
+def _pairs(ctx, param, values: tuple[str, ...]) -> tuple[str, ...]:
+    for item in values:
+        if "=" not in item:
+            raise click.BadParameter(f"expected COLUMN=VALUE, got {item!r}")
+    return values
+
+
+def _png_path(ctx, param, value: str) -> str:
+    if Path(value).suffix.lower() != ".png":
+        raise click.BadParameter(f"expected a path ending in .png, got {value!r}")
+    return value
+
+
+@click.group("plot")
+def command():
+    """Draw query results as PNG pictures (needs matplotlib: the 'plot' extra).
+
+    Pictures are 1600 x 1000 pixels, colour-blind-safe and readable in greyscale.
+
+    \b
+    Example:
+      dbmetrics plot trend --query rollup --metric cross_entropy --set logs=demo_parquet/logs \\
+          --set labels=demo_parquet/labels/labels.parquet --set id_col=prediction_id --output ce.png
+    """
+
+
+@command.command("reliability")
+@_plot_options
+@click.pass_obj
+def reliability(session, settings, by, only, start, end, title, output):
+    """Reliability diagram from the calibration query: accuracy against confidence per version.
+
+    Bins are pooled over every period in the result (their counts and sums added, not
+    their averages); narrow the range with --start/--end. ECE per curve is in the legend.
+
+    \b
+    Example:
+      dbmetrics plot reliability --set logs=demo_parquet/logs --set id_col=prediction_id \\
+          --set labels=demo_parquet/labels/labels.parquet --output reliability.png
+    """
+    from dbmetrics import plots
+
+    table, by, keys, _ = _query(session, "calibration", settings, by, only, start, end)
+    _write(session, plots.reliability_figure(table, by, keys, title), output)
+
+
+@command.command("trend")
+@click.option("--query", "-q", "name", type=click.Choice(["rollup", "drift"]), default="rollup",
+              show_default=True, help="Saved query whose result to draw.")
+@click.option("--metric", "-m", default="cross_entropy", show_default=True, metavar="COLUMN",
+              help="Numeric output column to draw over period, e.g. accuracy, ece, prediction_js.")
+@_plot_options
+@click.pass_obj
+def trend(session, name, metric, settings, by, only, start, end, title, output):
+    """A metric over time, one line per version or segment value.
+
+    Cross-entropy gets 95% error bars from cross_entropy_se (rollup). With --query drift,
+    flagged rows are ringed and the reference window is shaded.
+
+    \b
+    Example:
+      dbmetrics plot trend --query drift --metric prediction_js --by region --only model_version=v2 \\
+          --set logs=demo_parquet/logs --set labels=demo_parquet/labels/labels.parquet \\
+          --set id_col=prediction_id --output drift.png
+    """
+    from dbmetrics import plots
+
+    table, by, keys, grain = _query(session, name, settings, by, only, start, end)
+    _write(session, plots.trend_figure(table, metric, by, keys, grain, title), output)
+
+
+def _query(session, name, settings, by, only, start, end):
+    """Run query ``name`` with the merged parameters; (kept rows, by column, group columns, grain)."""
+    from dbmetrics import plots, templates
+
+    plots.require_matplotlib()
+    dirs = session.query_dirs
+    info = templates.get_query(name, query_dirs=dirs)
+    params = merge(name, [p.name for p in info.params], session.project, parse_settings(settings))
+    resolved = {p.name: p.default for p in info.params} | params
+    equal = dict(item.partition("=")[::2] for item in only)
+    version = resolved["version_col"]
+    segments = [s.strip() for s in (resolved.get("segment_cols") or "").split(",") if s.strip()]
+    by = by or version
+    outputs = {column for column, _ in info.outputs}
+    for column in [by, *equal]:
+        if column not in {version, *segments, *outputs}:
+            segments.append(column)
+    if segments:
+        params["segment_cols"] = ",".join(segments)
+    table = session.execute(lambda con: templates.run_query(con, name, params, query_dirs=dirs))
+    table = plots.keep_rows(table, equal, start and start.date(), end and end.date())
+    return table, by, (version, *segments), resolved["grain"]
+
+
+def _write(session, figure, output: str) -> None:
+    from dbmetrics import plots
+
+    data = plots.png_bytes(figure)
+    atomic_write(output, lambda f: f.write(data))
+    session.info(f"wrote {plots.WIDTH}x{plots.HEIGHT} PNG to {output}")

@@ -1,0 +1,20 @@
+"""PNG pictures of query results, drawn with matplotlib (the optional extra ``plot``).
+
+    reliability_figure(calibration, by) -> Figure   accuracy vs confidence per group, pooled over periods
+    trend_figure(result, metric, by, keys) -> Figure   a metric over ``period``, one line per group
+    png_bytes(figure) -> bytes                       WIDTH x HEIGHT pixels
+    pool_bins(calibration, by) -> list[Pooled]       calibration bins summed over periods (no matplotlib)
+    keep_rows(table, equal, start, end) -> Table     rows with COLUMN = VALUE and period in [start, end]
+
+Importing this package does not import matplotlib; drawing without it raises
+``DbmetricsError("plotting needs matplotlib: pip install 'dbmetrics[plot]'")``.
+"""
+
+from .pooling import Pooled, pool_bins
+from .reliability import reliability_figure
+from .rows import keep_rows
+from .style import HEIGHT, WIDTH, png_bytes, require_matplotlib
+from .trend import trend_figure
+
+__all__ = ["reliability_figure", "trend_figure", "png_bytes", "pool_bins", "Pooled", "keep_rows",
+           "require_matplotlib", "WIDTH", "HEIGHT"]

@@ -1,0 +1,49 @@
+"""Reliability diagram: accuracy against mean confidence per confidence bin, one curve per group,
+with the diagonal of perfect calibration and each group's share of rows per bin below."""
+
+from __future__ import annotations
+
+import pyarrow as pa
+
+from dbmetrics.errors import DbmetricsError
+from dbmetrics.plots.pooling import pool_bins
+from dbmetrics.plots.rows import split_keys
+from dbmetrics.plots.style import GREY, HATCHES, new_figure, series_style, tidy
+
+
+def reliability_figure(calibration: pa.Table, by: str, keys: tuple[str, ...] = (), title: str | None = None):
+    """A Figure from the ``calibration`` query's result: one curve per value of ``by``, its bins
+    pooled over every period and over the other group columns ``keys`` (version, segments)."""
+    if calibration.num_rows == 0:
+        raise DbmetricsError("nothing to plot: no calibration rows (none evaluated, e.g. no labels: "
+                             "--set labels=... --set id_col=...; or the row filters kept none)")
+    groups = pool_bins(calibration, by)
+    figure = new_figure()
+    curve, counts = figure.subplots(2, 1, sharex=True, height_ratios=[3, 1])
+    curve.plot([0, 1], [0, 1], color=GREY, linestyle=(0, (4, 3)), linewidth=1, label="perfectly calibrated")
+    width = (groups[0].bin_upper - groups[0].bin_lower).min() / (len(groups) + 1)
+    for i, group in enumerate(groups):
+        style = series_style(i)
+        curve.plot(group.mean_confidence, group.accuracy, markersize=5, linewidth=1.6, clip_on=False, **style,
+                   label=f"{group.group}: ECE {group.ece:.3f}, {group.evaluated_rows:,} rows")
+        left = group.bin_lower + width * (i + 0.5)
+        counts.bar(left, group.rows / group.rows.sum(), width=width, align="edge", color=style["color"],
+                   hatch=HATCHES[i % len(HATCHES)], edgecolor="white", linewidth=0.4)
+    curve.set(xlim=(0, 1), ylim=(0, 1), ylabel="accuracy (share correct)")
+    curve.legend(loc="upper left", title=by, fontsize=8, title_fontsize=8, frameon=False)
+    counts.set(xlabel="mean top-label confidence in the bin (probability)", ylabel="share of its rows")
+    counts.set_ylim(0, None)
+    for ax in (curve, counts):
+        tidy(ax)
+    curve.set_title(title or _title(calibration, by, keys), fontsize=10)
+    return figure
+
+
+def _title(calibration: pa.Table, by: str, keys: tuple[str, ...]) -> str:
+    """``Reliability per model_version, periods 2026-01-05 to 2026-06-29 pooled, 15 bins (region alpine)``."""
+    periods = calibration["period"].to_pylist()
+    pooled, fixed = split_keys(calibration, keys, by)
+    bins = round(1 / (calibration["bin_upper"][0].as_py() - calibration["bin_lower"][0].as_py()))
+    over = f"periods {min(periods)} to {max(periods)}" + "".join(f", every {k}" for k in pooled)
+    only = f" ({', '.join(f'{k} {v}' for k, v in fixed.items())})" if fixed else ""
+    return f"Reliability per {by}, {over} pooled, {bins} bins{only}"
