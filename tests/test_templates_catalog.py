@@ -58,7 +58,7 @@ def test_built_in_queries_and_their_header():
     grain = queries["rollup"].param("grain")
     assert (grain.type, grain.choices, grain.default, grain.required) == (
         "choice(day|week|month)", ("day", "week", "month"), "week", False)
-    assert queries["rollup"].param("logs").required
+    assert not queries["rollup"].param("logs").required  # logs or partials: checked when rendering
     assert queries["drift"].param("ref_start").default is None
     assert all(q.origin == "built-in" and q.path.parent == BUILT_IN for q in queries.values())
 

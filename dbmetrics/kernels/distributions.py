@@ -13,6 +13,7 @@ rows within tolerance are renormalised to sum exactly 1.
 import numpy as np
 
 SUM_TOLERANCE = 1e-3
+LN2 = float(np.log(2.0))
 
 
 def as_distribution(p: np.ndarray, tolerance: float = SUM_TOLERANCE) -> np.ndarray:
@@ -57,7 +58,7 @@ def entropy(p: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         terms = p * np.log(p)
     terms[p == 0] = 0.0
-    return -terms.sum(axis=1)
+    return 0.0 - terms.sum(axis=1)  # +0.0, not -0.0, for a certain outcome
 
 
 def kl_divergence(p: np.ndarray, q: np.ndarray) -> np.ndarray:
@@ -66,13 +67,22 @@ def kl_divergence(p: np.ndarray, q: np.ndarray) -> np.ndarray:
     >>> round(float(kl_divergence(np.array([[.36, .48, .16]]), np.full((1, 3), 1/3))[0]), 7)
     0.0852996
     """
-    return xlogy_ratio(p, q).sum(axis=1)
+    return clipped(xlogy_ratio(p, q).sum(axis=1))
 
 
 def js_divergence(p: np.ndarray, q: np.ndarray) -> np.ndarray:
-    """Jensen-Shannon divergence per row (nats), in [0, log 2], never infinite."""
-    m = 0.5 * (p + q)
-    return 0.5 * xlogy_ratio(p, m).sum(axis=1) + 0.5 * xlogy_ratio(q, m).sum(axis=1)
+    """Jensen-Shannon divergence per row (nats), in [0, log 2], never infinite.
+
+    Each term p log(p / m) is taken as p (log p - log(p + q) + log 2): m = (p + q)/2 would
+    underflow to 0 for a subnormal q and turn a finite divergence into +inf.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_sum = np.log(p + q)
+        tp = p * (np.log(p) - log_sum + LN2)
+        tq = q * (np.log(q) - log_sum + LN2)
+    tp[p == 0] = 0.0
+    tq[q == 0] = 0.0
+    return clipped(0.5 * tp.sum(axis=1) + 0.5 * tq.sum(axis=1), LN2)
 
 
 def population_stability_index(actual: np.ndarray, expected: np.ndarray) -> np.ndarray:
@@ -80,4 +90,11 @@ def population_stability_index(actual: np.ndarray, expected: np.ndarray) -> np.n
 
     No smoothing here; callers that compare sparse histograms smooth the counts first.
     """
-    return xlogy_ratio(actual, expected).sum(axis=1) + xlogy_ratio(expected, actual).sum(axis=1)
+    return clipped(xlogy_ratio(actual, expected).sum(axis=1)
+                   + xlogy_ratio(expected, actual).sum(axis=1))
+
+
+def clipped(d: np.ndarray, high: float = np.inf) -> np.ndarray:
+    """A divergence kept within its mathematical range; rounding of nearly equal rows can
+    otherwise give -1e-17 (NaN rows stay NaN)."""
+    return np.clip(d, 0.0, high)

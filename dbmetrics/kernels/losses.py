@@ -35,7 +35,7 @@ def cross_entropy_logits(z: np.ndarray, y: np.ndarray) -> np.ndarray:
 def cross_entropy_probs(p: np.ndarray, y: np.ndarray) -> np.ndarray:
     """-log p_y per row of checked, renormalised probabilities."""
     with np.errstate(divide="ignore"):
-        return -np.log(pick(as_distribution(p), y))
+        return 0.0 - np.log(pick(as_distribution(p), y))
 
 
 def soft_cross_entropy_log(logp: np.ndarray, t: np.ndarray) -> np.ndarray:
@@ -44,7 +44,7 @@ def soft_cross_entropy_log(logp: np.ndarray, t: np.ndarray) -> np.ndarray:
     with np.errstate(invalid="ignore"):
         terms = t * logp
     terms[t == 0] = 0.0
-    return -terms.sum(axis=1)
+    return 0.0 - terms.sum(axis=1)
 
 
 def soft_cross_entropy_logits(z: np.ndarray, t: np.ndarray) -> np.ndarray:

@@ -119,11 +119,12 @@ def logit_row_stats(z, present, lengths, y, y_present, bins) -> RowStats:
         cols = np.arange(zt.shape[1])
         loss = log_s - zt[np.clip(y, 0, zt.shape[0] - 1), cols]
         pd = np.einsum("ij,ij->j", pt, zt)
+        conf = 1.0 / s
         masked = np.isnan(pd) & ok
         if masked.any():
             pm, dm = pt[:, masked], zt[:, masked]
             pd[masked] = np.where(pm > 0, pm * dm, 0.0).sum(axis=0)
-    return assemble(score_issue, y, y_present, lengths, pt, 1.0 / s, first_argmax(zt, 0.0),
+    return assemble(score_issue, y, y_present, lengths, pt, conf, first_argmax(zt, 0.0),
                     loss, log_s - pd, bins)
 
 
@@ -144,7 +145,7 @@ def prob_row_stats(p, present, lengths, y, y_present, bins) -> RowStats:
         pt /= np.where(is_dist, total, np.nan)
         logp = np.log(pt)
         cols = np.arange(pt.shape[1])
-        loss = -logp[np.clip(y, 0, pt.shape[0] - 1), cols]
+        loss = 0.0 - logp[np.clip(y, 0, pt.shape[0] - 1), cols]
         entropy = 0.0 - np.einsum("ij,ij->j", pt, np.where(pt > 0, logp, 0.0))
         conf = pt.max(axis=0)
     return assemble(score_issue, y, y_present, lengths, pt, conf, first_argmax(pt, conf),

@@ -1,7 +1,7 @@
 -- name: segments
 -- summary: The rollup beside a business segment table (revenue, customer tier, ...): one row per period x version x segment, the table's columns joined on the segment columns.
 -- param business (source, required): business segment table: a Parquet or CSV file, or a table/view name, with one row per segment
--- param logs (source, required): prediction log: a Parquet file, glob or (hive-partitioned) folder, or a table/view name
+-- param logs (source): prediction log: a Parquet file, glob or (hive-partitioned) folder, or a table/view name; required unless partials is set
 -- param time_col (column, default ts): prediction time, DATE or TIMESTAMP; its day is CAST(time AS DATE)
 -- param scores_col (column, default logits): the model's scores: a numeric list per row (one number for binary_* kinds)
 -- param scores_kind (choice(logits|probs|binary_logit|binary_prob), default logits): logits (softmax taken) or probabilities (checked, renormalised); binary_logit s -> [0, s], binary_prob p -> [1-p, p]
@@ -13,6 +13,7 @@
 -- param id_col (column): prediction id present in both logs and labels (needed with labels)
 -- param classes (text): class names in class-index order, comma-separated, for labels stored as text; an unknown name is a bad label
 -- param bins (integer(1..1000), default 15): equal-width confidence bins, bin m holds m/B < c <= (m+1)/B (0 in bin 0)
+-- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column map must cover version_col and segment_cols
 -- output period: first day of the period
 -- output rows: then every other rollup column, as documented in the rollup query
 -- note: after the rollup columns come the business table's other columns, NULL for segments it lacks.

@@ -129,8 +129,12 @@ def nested(sql: str) -> str:
     return "(\n" + textwrap.indent(sql, "    ") + "\n)"
 
 
-def predictions(cmap: ColumnMap) -> str:
-    """One row per prediction: day, keys, scores, label."""
+def predictions(cmap: ColumnMap, window: bool = False) -> str:
+    """One row per prediction: day, keys, scores, label.
+
+    window: keep only $window_start <= time < $window_end (bound TIMESTAMPs), a filter
+    DuckDB pushes into the Parquet scan, so row groups outside it are skipped.
+    """
     wrap = KINDS[cmap.kind][2]
     scores = f"logs.{quote(cmap.scores)}"
     if wrap:
@@ -149,23 +153,28 @@ def predictions(cmap: ColumnMap) -> str:
         label = class_index(cmap, f"logs.{quote(cmap.label)}")
     else:
         label = "CAST(NULL AS BIGINT)"
+    where = ""
+    if window:
+        time = f"logs.{quote(cmap.time)}"
+        where = (f"\nWHERE {time} >= CAST($window_start AS TIMESTAMP)"
+                 f" AND {time} < CAST($window_end AS TIMESTAMP)")
     return (f"SELECT CAST(logs.{quote(cmap.time)} AS DATE) AS day, {keys},\n"
             f"       {scores} AS scores,\n       {label} AS label\n"
-            f"FROM {cmap.logs.sql} AS logs{join}")
+            f"FROM {cmap.logs.sql} AS logs{join}{where}")
 
 
-def row_stats(cmap: ColumnMap) -> str:
+def row_stats(cmap: ColumnMap, window: bool = False) -> str:
     """predictions plus the struct of per-row statistics (one UDF call per row)."""
     fn = KINDS[cmap.kind][0]
     return (f"SELECT day, {cmap.keys}, scores, label, {fn}(scores, label, $bins) AS stats\n"
-            f"FROM {nested(predictions(cmap))}")
+            f"FROM {nested(predictions(cmap, window))}")
 
 
-def state(cmap: ColumnMap) -> str:
+def state(cmap: ColumnMap, window: bool = False) -> str:
     """STATE (see module docstring) as a SELECT."""
     evaluated = (f"SELECT *, coalesce(stats.score_issue = 0 AND stats.label_issue = 0\n"
                  f"                   AND isfinite(stats.loss), false) AS evaluated\n"
-                 f"FROM {nested(row_stats(cmap))}")
+                 f"FROM {nested(row_stats(cmap, window))}")
     return f"""SELECT day, {cmap.keys}, stats.bin AS bin,
     count(*) AS rows,
     count(label) AS labelled_rows,
@@ -187,12 +196,12 @@ FROM {nested(evaluated)}
 GROUP BY ALL"""
 
 
-def class_state(cmap: ColumnMap) -> str:
+def class_state(cmap: ColumnMap, window: bool = False) -> str:
     """CLASS_STATE (see module docstring) as a SELECT."""
     dist = KINDS[cmap.kind][1]
     scored = (f"SELECT day, {cmap.keys}, label, stats.predicted AS predicted,\n"
               f"       stats.label_issue = 0 AS label_ok, {dist}(scores) AS dist\n"
-              f"FROM {nested(row_stats(cmap))}\nWHERE stats.score_issue = 0")
+              f"FROM {nested(row_stats(cmap, window))}\nWHERE stats.score_issue = 0")
     per_class = (f"SELECT day, {cmap.keys}, label, predicted, label_ok,\n"
                  f"       unnest(range(len(dist))) AS class, unnest(dist) AS prob\n"
                  f"FROM {nested(scored)}")

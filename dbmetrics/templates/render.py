@@ -41,7 +41,18 @@ def render_info(con, info: QueryInfo, params: dict, included: dict) -> tuple:
     sources = {p.name: open_source(con, p.name, texts[p.name]) for p in info.params
                if p.kind == "source" and texts[p.name] is not None}
     filled = {}
-    if all(p in texts for p in COLUMN_MAP):
+    if all(p in texts for p in COLUMN_MAP) and texts.get("partials") is not None:
+        from dbmetrics.partials import store_fragments  # partials builds on the templates
+        store_sql, store_values = store_fragments(texts)
+        filled.update(store_sql)
+        values.update(store_values)
+        filled.update({p.name: checked_names(p, texts[p.name]) for p in info.params
+                       if p.name in COLUMN_MAP and p.kind in ("column", "columns")
+                       and p.name not in filled})
+    elif all(p in texts for p in COLUMN_MAP):
+        if texts["logs"] is None:
+            raise DbmetricsError(f"query `{info.name}` needs parameter `logs` (the prediction "
+                                 "log) or `partials` (a store of summarised days)")
         queries = [info, *included.values()]
         reserved = set(STATE_COLUMNS + CLASS_STATE_COLUMNS + INTERNAL) | {
             out.lower() for q in queries for out, _ in q.outputs} | {
@@ -57,6 +68,11 @@ def render_info(con, info: QueryInfo, params: dict, included: dict) -> tuple:
         filled[key] = PLACEHOLDER.sub(lambda m: fill(m.group(1), filled, inner), inner.body)
     sql = PLACEHOLDER.sub(lambda m: fill(m.group(1), filled, info), info.body)
     return sql, {n: values[n] for n in dict.fromkeys(BOUND.findall(sql))}
+
+
+def checked_names(p, text) -> str:
+    """Quoted column name(s) not checked against a schema (unused by a partials rollup)."""
+    return ", ".join(quote(name) for name in split_names(text))
 
 
 def checked_columns(p, text, sources) -> str:
