@@ -16,6 +16,7 @@ from .kernels.softmax import row_max
 from .kernels.row_stats import RowStats
 
 LOGITS_PAD, PROBS_PAD = -np.inf, 0.0
+MAX_BINS = 1_000_000
 
 
 def checked_labels(name: str, labels, sm) -> tuple[np.ndarray, np.ndarray]:
@@ -35,7 +36,7 @@ def same_lengths(name: str, a, b, what: str) -> None:
     differ = both & (a.lengths != b.lengths)
     if differ.any():
         i = int(np.argmax(differ))
-        raise ValueError(f"{name}: scores have {a.lengths[i]} classes but {what} has "
+        raise ValueError(f"{name}: the first list has {a.lengths[i]} classes but {what} has "
                          f"{b.lengths[i]} in the same row; both lists must have one entry per class")
 
 
@@ -139,8 +140,9 @@ def binary_and_label_to_doubles(name, to_matrix, kernel):
 def confidence_to_bin(conf, bins):
     c, present = float_column(conf)
     b, b_present = integer_column(bins)
-    if b_present.any() and (b[b_present] < 1).any():
-        raise ValueError(f"calibration_bin: bins must be a positive integer, got {b[b_present].min()}")
+    if b_present.any() and ((b[b_present] < 1) | (b[b_present] > MAX_BINS)).any():
+        raise ValueError(f"calibration_bin: bins must be a whole number in 1..{MAX_BINS}, "
+                         f"got {b[b_present].min() if (b[b_present] < 1).any() else b[b_present].max()}")
     out = np.full(len(c), -1, np.int32)
     for count in np.unique(b[b_present]):
         rows = b_present & (b == count)
@@ -174,9 +176,9 @@ def row_stats_udf(kernel, pad):
         y, y_present = integer_column(labels)
         b, b_present = integer_column(bins)
         counts = np.unique(b[b_present])
-        if len(counts) != 1 or counts[0] < 1:
-            raise ValueError(f"row statistics: bins must be one positive integer for the whole "
-                             f"query, got {counts.tolist() or 'NULL'}")
+        if len(counts) != 1 or not 1 <= counts[0] <= MAX_BINS:
+            raise ValueError(f"row statistics: bins must be one whole number in 1..{MAX_BINS} "
+                             f"for the whole query, got {counts.tolist() or 'NULL'}")
         count = int(counts[0])
         return row_stats_struct(kernel(sm.values, sm.present, sm.lengths, y, y_present, count))
     return udf

@@ -25,7 +25,7 @@ def cross_entropy_logits(z: np.ndarray, y: np.ndarray) -> np.ndarray:
     >>> cross_entropy_logits(np.array([[1e4, -1e4, 0.0]] * 3), np.array([0, 1, 2])).tolist()
     [0.0, 20000.0, 10000.0]
     """
-    d, s, _, ok = shifted(z)
+    d, _, s, _, ok = shifted(z)
     with np.errstate(invalid="ignore", divide="ignore"):
         out = np.log(s) - pick(d, y)
     out[~ok] = np.nan

@@ -61,15 +61,14 @@ def transposed(values: np.ndarray) -> np.ndarray:
     return np.array(values.T, dtype=np.float64, order="C")
 
 
-def first_argmax(t: np.ndarray, top: np.ndarray) -> np.ndarray:
+def first_argmax(t: np.ndarray, top) -> np.ndarray:
     """Index of the first entry equal to the column maximum `top` in a (K, n) block."""
     if t.shape[0] > 32:
         return t.argmax(axis=0).astype(np.int32)
     idx = np.zeros(t.shape[1], np.int32)
     for j in range(t.shape[0] - 1, 0, -1):
-        idx[t[j] == top] = j
-    idx[t[0] == top] = 0
-    return idx
+        idx = np.where(t[j] == top, np.int32(j), idx)
+    return np.where(t[0] == top, np.int32(0), idx)
 
 
 def brier_and_correct(pt, y, labelled, pred):
@@ -110,13 +109,14 @@ def logit_row_stats(z, present, lengths, y, y_present, bins) -> RowStats:
     score_issue = np.where(present, np.where(ok, 0, INVALID), MISSING).astype(np.int8)
     if not ok.all():
         m[~ok] = 0.0
+    cols = np.arange(zt.shape[1])
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         zt -= m
+        top = first_argmax(zt, 0.0)
         pt = np.exp(zt)
-        s = pt.sum(axis=0)
+        s = pt.sum(axis=0)  # for K < 8 the same additions, in the same order, as scipy's
         log_s = np.log(s)
         pt /= s
-        cols = np.arange(zt.shape[1])
         loss = log_s - zt[np.clip(y, 0, zt.shape[0] - 1), cols]
         pd = np.einsum("ij,ij->j", pt, zt)
         conf = 1.0 / s
@@ -124,8 +124,7 @@ def logit_row_stats(z, present, lengths, y, y_present, bins) -> RowStats:
         if masked.any():
             pm, dm = pt[:, masked], zt[:, masked]
             pd[masked] = np.where(pm > 0, pm * dm, 0.0).sum(axis=0)
-    return assemble(score_issue, y, y_present, lengths, pt, conf, first_argmax(zt, 0.0),
-                    loss, log_s - pd, bins)
+    return assemble(score_issue, y, y_present, lengths, pt, conf, top, loss, log_s - pd, bins)
 
 
 def prob_row_stats(p, present, lengths, y, y_present, bins) -> RowStats:

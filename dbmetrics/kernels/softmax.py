@@ -42,8 +42,12 @@ def row_argmax(z: np.ndarray) -> np.ndarray:
 
 
 def shifted(z: np.ndarray):
-    """(d, s, m, ok): m = row max, d = z - m, s = sum(exp(d)) >= 1, ok = row defined.
+    """(d, e, s, m, ok) with m = row max, d = z - m <= 0, e = exp(d), s = sum(e) >= 1 and
+    ok = row defined.
 
+    The operations and their order are scipy.special.log_softmax's (exp of the shifted
+    row, numpy sum along the row, log), so results agree with it to the bit. Like it, a
+    loss near 0 carries an absolute error of about 1e-16 (log(1 + x) for x < 1e-7).
     Undefined rows (m not finite) are shifted by 0 and must be masked by the caller.
     """
     m = row_max(z)
@@ -51,8 +55,9 @@ def shifted(z: np.ndarray):
     m = np.where(ok, m, 0.0)
     with np.errstate(invalid="ignore", over="ignore"):
         d = z - m[:, None]
-        s = np.exp(d) @ np.ones(z.shape[1])
-    return d, s, m, ok
+        e = np.exp(d)
+        s = e.sum(axis=1)
+    return d, e, s, m, ok
 
 
 def logsumexp(z: np.ndarray) -> np.ndarray:
@@ -61,7 +66,7 @@ def logsumexp(z: np.ndarray) -> np.ndarray:
     >>> float(logsumexp(np.array([[1.0, 2.0, 3.0]]))[0])
     3.40760596444438
     """
-    _, s, m, ok = shifted(z)
+    _, _, s, m, ok = shifted(z)
     with np.errstate(divide="ignore", invalid="ignore"):
         out = np.log(s) + m
     out[~ok] = np.nan
@@ -74,7 +79,7 @@ def log_softmax(z: np.ndarray) -> np.ndarray:
     >>> log_softmax(np.array([[1e4, -1e4, 0.0]])).tolist()
     [[0.0, -20000.0, -10000.0]]
     """
-    d, s, _, ok = shifted(z)
+    d, _, s, _, ok = shifted(z)
     with np.errstate(divide="ignore", invalid="ignore"):
         out = d - np.log(s)[:, None]
     out[~ok] = np.nan
@@ -87,8 +92,8 @@ def softmax(z: np.ndarray) -> np.ndarray:
     >>> softmax(np.array([[0.0, -np.inf, 0.0]])).tolist()
     [[0.5, 0.0, 0.5]]
     """
-    d, s, _, ok = shifted(z)
+    _, e, s, _, ok = shifted(z)
     with np.errstate(invalid="ignore", over="ignore"):
-        out = np.exp(d) / s[:, None]
+        out = e / s[:, None]
     out[~ok] = np.nan
     return out

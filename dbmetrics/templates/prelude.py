@@ -170,11 +170,12 @@ def row_stats(cmap: ColumnMap, window: bool = False) -> str:
             f"FROM {nested(predictions(cmap, window))}")
 
 
-def state(cmap: ColumnMap, window: bool = False) -> str:
-    """STATE (see module docstring) as a SELECT."""
+def state(cmap: ColumnMap, window: bool = False, rows: str | None = None) -> str:
+    """STATE (see module docstring) as a SELECT; `rows` names a relation that already holds
+    day, keys, label and stats (the numpy engine's output) instead of the UDF call."""
     evaluated = (f"SELECT *, coalesce(stats.score_issue = 0 AND stats.label_issue = 0\n"
                  f"                   AND isfinite(stats.loss), false) AS evaluated\n"
-                 f"FROM {nested(row_stats(cmap, window))}")
+                 f"FROM {rows or nested(row_stats(cmap, window))}")
     return f"""SELECT day, {cmap.keys}, stats.bin AS bin,
     count(*) AS rows,
     count(label) AS labelled_rows,

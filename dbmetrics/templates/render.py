@@ -13,6 +13,7 @@ from dbmetrics.errors import DbmetricsError
 from .catalog import get_query
 from .header import BOUND, COLUMN_MAP, PLACEHOLDER, QueryInfo
 from .prelude import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS, column_map, fragments
+from .engine import materialized_state
 from .schema import open_source, quote
 from .values import convert, split_names, with_defaults
 
@@ -21,7 +22,7 @@ ALIAS = re.compile(r"\bAS\s+([a-z_][a-z0-9_]*)\b")  # lower-case aliases; SQL ty
 
 
 def render_query(con: duckdb.DuckDBPyConnection, name: str, params: dict,
-                 query_dirs=None) -> tuple:
+                 query_dirs=None, materialize: bool = False) -> tuple:
     """(sql, bound): the query's SQL and the values for exactly the `$names` it uses."""
     info = get_query(name, query_dirs)
     included = [get_query(n[len("query:"):], query_dirs)
@@ -31,10 +32,13 @@ def render_query(con: duckdb.DuckDBPyConnection, name: str, params: dict,
         if missing:
             raise DbmetricsError(f"{info.path}: includes query `{inner.name}`, whose parameters "
                                  f"{', '.join(missing)} it does not declare")
-    return render_info(con, info, params, {f"query:{q.name}": q for q in included})
+    return render_info(con, info, params, {f"query:{q.name}": q for q in included}, materialize)
 
 
-def render_info(con, info: QueryInfo, params: dict, included: dict) -> tuple:
+def render_info(con, info: QueryInfo, params: dict, included: dict,
+                materialize: bool = False) -> tuple:
+    """materialize: compute STATE now with the numpy engine (engine.py) and read it from a
+    registered table; otherwise {{state}} is the equivalent SQL with one UDF call per row."""
     texts = with_defaults(info, params)
     values = {p.name: convert(p, texts[p.name]) for p in info.params
               if p.kind not in ("source", "column", "columns")}
@@ -57,7 +61,11 @@ def render_info(con, info: QueryInfo, params: dict, included: dict) -> tuple:
         reserved = set(STATE_COLUMNS + CLASS_STATE_COLUMNS + INTERNAL) | {
             out.lower() for q in queries for out, _ in q.outputs} | {
             alias for q in queries for alias in ALIAS.findall(q.body)}
-        filled.update(fragments(column_map(texts, sources, reserved)))
+        cmap = column_map(texts, sources, reserved)
+        filled.update(fragments(cmap))
+        if materialize and any("{{state}}" in q.body.replace(" ", "") for q in queries):
+            bound = {k: v for s in sources.values() for k, v in s.bound.items()}
+            filled["state"] = materialized_state(con, cmap, {**values, **bound})
     for p in info.params:
         if p.kind == "source" and p.name in sources:
             filled[p.name] = sources[p.name].sql
