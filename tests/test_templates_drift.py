@@ -22,8 +22,8 @@ def con():
 
 def write_logs(path, seed=31, per_cell=400, weeks=10, k=4, shift=2.0, drift_segment="b",
                versions=("v1", "v2")):
-    """Labels follow the undrifted model (the seed is fixed: with z = 3 about 0.3% of clean
-    cells pass the cross-entropy test by chance); from DRIFT_WEEK the drifted segment's model
+    """Labels follow the undrifted model (the seed is fixed: at the default z = 4 about 6 in
+    100,000 clean cells pass the cross-entropy test by chance); from DRIFT_WEEK the drifted segment's model
     over-predicts class 0 (its logit + shift)."""
     rng = np.random.default_rng(seed)
     segments = ("a", "b", "c")

@@ -15,7 +15,7 @@
 -- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column map must cover version_col and segment_cols
 -- param ref_start (date): first day of the reference window (default: the first day in the data)
 -- param ref_end (date): last day of the reference window (default: the end of the 4th period from ref_start's period)
--- param z (number(0..), default 3): flag a cross-entropy change when |cross_entropy_z| > z; also sets the chance level each divergence must pass (see notes)
+-- param z (number(0..), default 4): flag a cross-entropy change when |cross_entropy_z| > z; also sets the chance level each divergence must pass (see notes)
 -- param min_rows (integer(0..), default 200): a cell or reference with fewer scored (for label tests: evaluated) rows is never flagged
 -- param js_threshold (number(0..), default 0.01): flag when prediction_js exceeds this (nats) and its chance level
 -- param psi_threshold (number(0..), default 0.25): flag when confidence_psi exceeds this and its chance level; common practice (a rule of thumb, no single source): < 0.1 stable, 0.1-0.25 moderate, > 0.25 major
@@ -46,7 +46,7 @@
 -- note: prediction_kl is reported, not flagged on (unbounded, asymmetric); prediction_js, confidence_psi, label_js, ece_delta and cross_entropy_z are flagged on.
 -- note: chance levels: two samples of sizes n and m (n_eff = nm/(n+m)) from one distribution over D bins give 8 n_eff JS and n_eff PSI of about chi-square(D - 1); a divergence is flagged only above max(threshold, ((D - 1) + z sqrt(2 (D - 1))) / (8 n_eff)), resp. / n_eff for PSI. D = K classes or bins; n = scored rows (labelled rows for label_js). For mean predicted probabilities this chance level is conservative.
 -- note: chance ECE (a heuristic): the expected ECE of a perfectly calibrated model with the same bin counts and accuracies, sqrt(2/pi) sum_b sqrt(n_b acc_b (1 - acc_b)) / n; ECE is biased upward by about this much, so small cells differ by chance.
--- note: the cross-entropy test treats cell and reference as independent samples and pools their variance (under "no change" they share it; this keeps the cell's mean and its standard error from moving together, which a skewed loss otherwise turns into extra false alarms). With z = 3, about 0.3% of clean cells pass by chance (simulated): with 50 cells, one false flag in about 1 run of 7.
+-- note: the cross-entropy test treats cell and reference as independent samples and pools their variance (under "no change" they share it; this keeps the cell's mean and its standard error from moving together, which a skewed loss otherwise turns into extra false alarms). The default z = 4 lets about 6 in 100,000 clean cells pass by chance (two-sided normal tail), so a weekly table of hundreds of cells stays quiet; z = 3 (0.3%) is more sensitive and noisier.
 -- example: dbmetrics run drift --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set segment_cols=region --set ref_start=2026-01-05 --set ref_end=2026-02-01
 WITH
 state AS (
