@@ -8,14 +8,15 @@ from dataclasses import dataclass
 from typing import Callable
 
 import duckdb
-from duckdb.sqltypes import BIGINT, BOOLEAN, DOUBLE, INTEGER
+from duckdb.sqltypes import BIGINT, BOOLEAN, DOUBLE, INTEGER, VARCHAR
 
 from .kernels import distributions as dist
 from .kernels import losses, predictions, row_stats, softmax
 from .udf_adapters import (LOGITS_PAD, PROBS_PAD, ROW_STATS_TYPE, binary_and_label_to_doubles,
                            binary_logit_loss, binary_logit_matrix, binary_prob_matrix, confidence_to_bin, correct_class,
                            lists_and_label_to_doubles, lists_to_class, lists_to_doubles,
-                           lists_to_lists, row_stats_udf, two_lists_to_doubles)
+                           lists_to_lists, row_stats_udf, temperature_grid_udf,
+                           two_lists_to_doubles)
 
 SCORES = duckdb.list_type(DOUBLE)
 ROW_STATS = duckdb.struct_type({f.name: {
@@ -126,6 +127,9 @@ FUNCTIONS = (
                 "(p - label)^2 for one probability of class 1, range [0, 1]"),
     SqlFunction("calibration_bin", (DOUBLE, BIGINT), INTEGER, confidence_to_bin,
                 "0-based bin m with m/B < c <= (m+1)/B, c = 0 in bin 0"),
+    SqlFunction("temperature_scaled_losses", (SCORES, BIGINT, SCORES, VARCHAR), SCORES,
+                temperature_grid_udf,
+                "cross-entropy of softmax(z / t) for each t in a list; kind 'logits' or 'probs'"),
     SqlFunction("logit_row_stats", (SCORES, BIGINT, BIGINT), ROW_STATS,
                 row_stats_udf(row_stats.logit_row_stats, LOGITS_PAD),
                 "every per-row quantity a rollup needs, from logits"),

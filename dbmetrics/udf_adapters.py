@@ -10,7 +10,9 @@ import numpy as np
 import pyarrow as pa
 
 from .arrow_lists import (booleans, doubles, float_column, integer_column, integers,
-                          list_of_doubles, score_matrix)
+                          list_of_doubles, score_matrix, single_array)
+from .kernels.distributions import as_distribution
+from .kernels.losses import temperature_scaled_losses
 from .kernels.predictions import calibration_bin, predicted_class
 from .kernels.softmax import row_max
 from .kernels.row_stats import RowStats
@@ -148,6 +150,30 @@ def confidence_to_bin(conf, bins):
         rows = b_present & (b == count)
         out[rows] = calibration_bin(c[rows], int(count))
     return integers(out, ~(present & b_present) | (out < 0))
+
+
+def temperature_grid_udf(scores, labels, temperatures, kinds):
+    """Cross-entropy at each temperature, for the rows a rollup evaluates; NULL otherwise.
+
+    kinds: a scores_kind, 'logits' / 'binary_logit' or 'probs' / 'binary_prob' (probabilities
+    are checked and their logs used as logits; binary scores arrive as two-class lists).
+    A row is NULL when its scores are unusable, its label is NULL or outside [0, K), or its
+    true class has probability 0 (the rollup's infinite-loss rows).
+    """
+    logits = single_array(kinds)[0].as_py() in ("logits", "binary_logit")
+    sm = score_matrix(scores, LOGITS_PAD if logits else PROBS_PAD)
+    z = sm.values
+    if not logits:
+        with np.errstate(divide="ignore"):
+            z = np.log(as_distribution(z))
+    y, y_present = integer_column(labels)
+    usable = sm.present & y_present & (y >= 0) & (y < sm.lengths)
+    t, _ = float_column(single_array(temperatures)[0].values)
+    if not len(t) or not (np.isfinite(t) & (t > 0)).all():
+        raise ValueError("temperature_scaled_losses: temperatures must be positive numbers")
+    losses = temperature_scaled_losses(z, np.where(usable, y, 0), t)
+    usable &= np.isfinite(losses).all(axis=1)
+    return list_of_doubles(losses, np.full(len(z), len(t)), ~usable)
 
 
 ROW_STATS_TYPE = pa.struct([

@@ -31,11 +31,13 @@ LIST_CALLS = {
     "confidence": "confidence({a})", "confidence_probs": "confidence_probs({a})",
     "margin": "margin({a})", "margin_probs": "margin_probs({a})",
     "brier_score": "brier_score({a}, 0)", "brier_score_probs": "brier_score_probs({a}, 0)",
+    "temperature_scaled_losses": "temperature_scaled_losses({a}, 0, [1.0, 2.0], 'logits')",
 }
 TWO_LISTS = ("soft_cross_entropy", "soft_cross_entropy_probs", "kl_divergence", "js_divergence",
              "population_stability_index")
 LOGIT_FUNCTIONS = ("log_softmax", "softmax", "logsumexp", "cross_entropy", "soft_cross_entropy",
-                   "softmax_entropy", "predicted_class", "is_correct", "confidence", "margin", "brier_score")
+                   "softmax_entropy", "predicted_class", "is_correct", "confidence", "margin", "brier_score",
+                   "temperature_scaled_losses")
 SCALAR_CALLS = {"binary_cross_entropy", "binary_cross_entropy_prob", "binary_brier_score",
                 "calibration_bin", "logit_row_stats", "prob_row_stats"}
 LABELLED = {"cross_entropy": "cross_entropy({a}, {y})", "cross_entropy_probs": "cross_entropy_probs({a}, {y})",

@@ -54,7 +54,7 @@ def logs(tmp_path):
 
 def test_built_in_queries_and_their_header():
     queries = {q.name: q for q in list_queries()}
-    assert set(queries) == {"rollup", "calibration", "drift", "segments"}
+    assert set(queries) == {"rollup", "calibration", "drift", "segments", "recalibration"}
     grain = queries["rollup"].param("grain")
     assert (grain.type, grain.choices, grain.default, grain.required) == (
         "choice(day|week|month)", ("day", "week", "month"), "week", False)
@@ -93,7 +93,7 @@ def test_user_query_may_not_shadow_a_built_in(tmp_path):
 
 def test_unknown_query_lists_the_names():
     with pytest.raises(DbmetricsError, match="no saved query `rolup`; queries are: "
-                                             "calibration, drift, rollup, segments"):
+                                             "calibration, drift, recalibration, rollup, segments"):
         get_query("rolup")
 
 
@@ -145,7 +145,7 @@ def test_a_query_can_include_another(tmp_path, logs):
     assert len(run_query(con, "wrapped", {"logs": logs, "min_rows": "1"}, dirs)) == 2
 
 
-@pytest.mark.parametrize("query", ["rollup", "calibration", "drift", "segments"])
+@pytest.mark.parametrize("query", ["rollup", "calibration", "drift", "segments", "recalibration"])
 def test_header_example_runs_on_the_demo_logs(query, monkeypatch):
     """The `-- example:` line is a working command (run from the repository root)."""
     root = BUILT_IN.parent.parent

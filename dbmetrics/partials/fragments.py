@@ -14,6 +14,7 @@ from dbmetrics.templates.values import split_names
 from .store import Store
 
 SUMMED_BY_KIND = {"state": "bin", "class_state": "class"}
+UNAVAILABLE = None  # a store keeps sums, not predictions: render refuses {{predictions}}
 
 
 def summed(kind: str, keys: str, param: str) -> str:
@@ -56,4 +57,5 @@ def store_fragments(texts: dict) -> tuple:
                                       for c in segments) or "true",
     }
     bound = {"partials_state": s.files("state"), "partials_class_state": s.files("class_state")}
+    fragments["predictions"] = UNAVAILABLE
     return fragments, bound

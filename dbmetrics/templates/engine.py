@@ -46,28 +46,22 @@ def compute_state(con: duckdb.DuckDBPyConnection, cmap: ColumnMap, values: dict,
     source_sql = predictions(cmap, window)
     reader = con.sql(source_sql, params=bind(source_sql, values)).to_arrow_reader(BATCH_ROWS)
     fields = [f for f in reader.schema if f.name != "scores"] + [pa.field("stats", ROW_STATS_TYPE)]
-    failures = []
-
-    def batches():
-        try:
-            for batch in reader:
-                yield with_row_stats(batch, kernel, pad, int(values["bins"]))
-        except Exception as exc:  # reported below as itself, not as DuckDB's wrapped text
-            failures.append(exc)
-            raise
-
+    rows = pa.RecordBatchReader.from_batches(
+        pa.schema(fields), (with_row_stats(b, kernel, pad, int(values["bins"])) for b in reader))
     cursor = con.cursor()  # the streaming result above keeps `con` busy
     try:
-        cursor.register(ROWS_VIEW, pa.RecordBatchReader.from_batches(pa.schema(fields), batches()))
+        cursor.register(ROWS_VIEW, rows)
         state_sql = state(cmap, rows=ROWS_VIEW)
         return cursor.sql(state_sql, params=bind(state_sql, values)).to_arrow_table()
-    except duckdb.Error:
-        if failures:
-            raise failures[0] from None
-        raise
+    except (duckdb.Error, pa.ArrowException):
+        # An error inside the stream (a corrupt file, a bad cast) reaches us wrapped and
+        # without its context; the UDF route over the same SQL reports it as DuckDB words it.
+        pass
     finally:
         cursor.close()
         reader.close()
+    udf_sql = state(cmap, window)
+    return con.sql(udf_sql, params=bind(udf_sql, values)).to_arrow_table()
 
 
 def materialized_state(con, cmap: ColumnMap, values: dict) -> str:

@@ -25,7 +25,7 @@ from pathlib import Path
 from dbmetrics.errors import DbmetricsError
 
 TYPES = ("source", "column", "columns", "choice", "date", "number", "integer", "text")
-FRAGMENTS = ("state", "class_state", "segments", "segment_match")  # see prelude.fragments
+FRAGMENTS = ("state", "class_state", "predictions", "segments", "segment_match")  # see prelude.fragments
 COLUMN_MAP = ("logs", "time_col", "scores_col", "scores_kind", "label_col", "version_col",
               "segment_cols", "labels", "id_col", "classes", "bins")
 

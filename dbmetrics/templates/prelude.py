@@ -217,7 +217,8 @@ GROUP BY ALL"""
 def fragments(cmap: ColumnMap) -> dict:
     """The {{placeholders}} the column map provides to template bodies.
 
-    state / class_state: the two additive states (SELECTs); segments: `, "seg1", "seg2"`
+    state / class_state: the two additive states (SELECTs); predictions: one row per
+    prediction (day, keys, scores as a list, label as a class index); segments: `, "seg1", "seg2"`
     (comma-led, empty without segments); segment_match: `cur."seg" IS NOT DISTINCT FROM
     ref."seg" AND ...` (aliases cur and ref; `true` without segments); and each column-map
     column parameter, quoted.
@@ -231,6 +232,7 @@ def fragments(cmap: ColumnMap) -> dict:
         "segment_cols": ", ".join(quote(c) for c in cmap.segments),
         "state": textwrap.indent(state(cmap), "    ").lstrip(),
         "class_state": textwrap.indent(class_state(cmap), "    ").lstrip(),
+        "predictions": textwrap.indent(predictions(cmap), "    ").lstrip(),
         "segments": "".join(f", {quote(c)}" for c in cmap.segments),
         "segment_match": match or "true",
     }

@@ -99,6 +99,9 @@ def checked_columns(p, text, sources) -> str:
 
 
 def fill(name: str, filled: dict, info: QueryInfo) -> str:
+    if name in filled and filled[name] is None:
+        raise DbmetricsError(f"query `{info.name}` reads individual predictions ({{{{{name}}}}}); "
+                             "a partials store keeps only sums: run it on logs")
     if name not in filled:
         raise DbmetricsError(f"{info.path}: placeholder {{{{{name}}}}} has no value; "
                              f"set parameter `{name}`")

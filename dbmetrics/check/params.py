@@ -1,0 +1,79 @@
+"""The check's parameters: the templates' column map (declared as in rollup) plus a few of
+its own, checked with the templates' own code (defaults, values, sources, column map)."""
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from dbmetrics.errors import DbmetricsError
+from dbmetrics.templates import get_query
+from dbmetrics.templates.header import QueryInfo, parse_param
+from dbmetrics.templates.prelude import NUMERIC_TYPES, ColumnMap, column_map
+from dbmetrics.templates.schema import Source, open_source
+from dbmetrics.templates.values import convert, with_defaults
+
+SHARED = ("time_col", "scores_col", "scores_kind", "label_col", "version_col",
+          "grain", "labels", "classes")
+OWN = (
+    "param logs (source, required): prediction log: a Parquet file, glob or "
+    "(hive-partitioned) folder, or a table/view name",
+    "param id_col (column): prediction id: with it, duplicate and NULL ids are counted "
+    "(and labels are joined on it when labels is set)",
+    "param target_col (column): soft targets (a numeric list per row): each must be a "
+    "distribution of the scores' length",
+    "param tolerance (number(0..1), default 0.001): a probability list (scores or soft "
+    "target) must sum to 1 within this",
+    "param require_labels (choice(no|yes), default no): yes counts NULL labels as a problem "
+    "(by default they are rows not labelled yet)",
+)
+# Columns beside the version column in the check's inner queries; it may not take one.
+RESERVED = {"day", "scores", "label", "s", "k", "score_issue", "label_issue"}
+
+
+def info() -> QueryInfo:
+    """The check's parameters, described like a saved query's."""
+    rollup = get_query("rollup")
+    here = Path(__file__)
+    own = [parse_param(text, here) for text in OWN]
+    params = own[:1] + [rollup.param(n) for n in SHARED] + own[1:]
+    return QueryInfo("check", "Health report of a prediction log", here, tuple(params),
+                     "dbmetrics check --set logs=demo_parquet/logs", "built-in")
+
+
+@dataclass(frozen=True)
+class Resolved:
+    """Checked parameters: texts as given, bound values, the column map, extra columns."""
+    texts: dict
+    values: dict
+    cmap: ColumnMap
+    id_col: str | None
+    target_col: str | None
+
+    @property
+    def logs(self) -> Source:
+        return self.cmap.logs
+
+
+def resolve(con, params: dict) -> Resolved:
+    """Defaults, value checks, sources and the column map, as the templates do them."""
+    query = info()
+    texts = with_defaults(query, params)
+    for p in query.params:  # empty text means "none": only label_col may be none
+        if texts[p.name] is None and p.default is not None and p.name != "label_col":
+            raise DbmetricsError(f"parameter `{p.name}` needs a value (its default is "
+                                 f"{p.default}); leave it out to use the default")
+    values = {p.name: convert(p, texts[p.name]) for p in query.params
+              if p.kind not in ("source", "column", "columns")}
+    sources = {name: open_source(con, name, texts[name]) for name in ("logs", "labels")
+               if texts[name] is not None}
+    cmap = column_map({**texts, "segment_cols": None, "bins": None}, sources, RESERVED)
+    logs = sources["logs"]
+    id_col = logs.column(texts["id_col"], "id_col") if texts["id_col"] else None
+    target = logs.column(texts["target_col"], "target_col") if texts["target_col"] else None
+    if target is not None and not is_number_list(logs.type_of(target)):
+        raise DbmetricsError(f"target_col: column `{target}` is {logs.type_of(target)}; "
+                             "expected a list of numbers (FLOAT[] or DOUBLE[])")
+    return Resolved(texts, values, cmap, id_col, target)
+
+
+def is_number_list(kind: str) -> bool:
+    return kind.endswith("]") and kind.rsplit("[", 1)[0].startswith(NUMERIC_TYPES)
