@@ -21,7 +21,6 @@ REPO = Path(__file__).resolve().parent.parent
 if str(REPO) not in sys.path:
     sys.path.insert(0, str(REPO))
 
-import duckdb                                                             # noqa: E402
 import numpy as np                                                        # noqa: E402
 import pyarrow as pa                                                      # noqa: E402
 

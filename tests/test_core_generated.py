@@ -290,7 +290,6 @@ def row_stats_reference(kind, k, bins=10):
     """Expected fields of logit_row_stats / prob_row_stats from the references above."""
     cols = logs(k)
     scores = cols["z" if kind == "logit" else "p"]
-    n = len(scores)
     classes = np.array([np.nan if s is None or not len(s) else len(s) for s in scores])
     y = np.array([np.nan if v is None else v for v in cols["y"]])
     prefix = "" if kind == "logit" else "_probs"

@@ -157,7 +157,7 @@ def test_weeks_pooled_equal_the_query_run_over_the_whole_month(con):
     rng = np.random.default_rng(3)
     n = 3000
     days = rng.integers(0, 30, n)  # June 2026: Monday 1st to Tuesday 30th, five weeks
-    logs = pa.table({
+    logs = pa.table({  # noqa: F841 (read by name through DuckDB's replacement scan)
         "ts": pa.array([dt.datetime(2026, 6, 1) + dt.timedelta(days=int(d), hours=9) for d in days]),
         "model_version": rng.choice(["v1", "v2"], n).tolist(),
         "logits": pa.array((2 * rng.standard_normal((n, 4))).tolist(), pa.list_(pa.float32())),

@@ -1,7 +1,6 @@
 """Saved-query headers, discovery of user folders, and the rules a header must follow."""
 
 import datetime as dt
-import textwrap
 
 import pyarrow as pa
 import pyarrow.parquet as pq

@@ -5,6 +5,7 @@ from collections import Counter, defaultdict
 import duckdb
 
 from dbmetrics.errors import DbmetricsError
+from dbmetrics.templates.header import bound_values
 from dbmetrics.templates.schema import first_line, open_source
 
 from . import files, sql
@@ -28,7 +29,7 @@ def check_log(con: duckdb.DuckDBPyConnection, params: dict) -> "Report":
     values = {**r.values, **r.logs.bound, **(r.cmap.labels.bound if r.cmap.labels else {})}
 
     def fetch(query):
-        return con.execute(query, sql.bound(query, values)).fetchall()
+        return con.execute(query, bound_values(query, values)).fetchall()
 
     try:
         return assemble(con, r, fetch)

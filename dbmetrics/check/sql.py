@@ -5,15 +5,11 @@ Row reasons are exclusive and tested in the order listed; a row's label is judge
 its scores are bad (its range only when its K is known).
 """
 
-import re
-
-from dbmetrics.templates.header import BOUND
 from dbmetrics.templates.prelude import class_index, nested, predictions
 from dbmetrics.templates.schema import quote
 
 from .params import Resolved
 
-LITERALS = re.compile(r'"(?:[^"]|"")*"|\'(?:[^\']|\'\')*\'|--[^\n]*')  # and comments
 
 SCORE_REASONS = (  # (reason, condition on s = scores as DOUBLE[]), for every kind
     ("missing_scores", "s IS NULL OR len(s) = 0"),
@@ -125,7 +121,3 @@ def targets(r: Resolved) -> str:
     return (f"SELECT CASE WHEN t IS NULL THEN 'no_target' ELSE {cases(TARGET_REASONS)} END "
             f"AS reason, count(*) AS n\nFROM {nested(rows_sql)}\nGROUP BY ALL")
 
-
-def bound(sql: str, values: dict) -> dict:
-    """The values for exactly the `$names` the SQL uses (outside identifiers and strings)."""
-    return {n: values[n] for n in dict.fromkeys(BOUND.findall(LITERALS.sub("", sql)))}

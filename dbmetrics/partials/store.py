@@ -27,10 +27,13 @@ KINDS = ("state", "class_state")
 
 
 def atomic_write(path: Path, write) -> None:
-    """Call write(tmp_path), then move tmp_path over `path`; no partial file survives."""
+    """Call write(tmp_path), flush it to disk, then move it over `path`: after a crash or a
+    power loss `path` holds the old or the new content, never a part."""
     tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
     try:
         write(tmp)
+        with open(tmp, "rb+") as f:
+            os.fsync(f.fileno())
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)
@@ -75,20 +78,26 @@ class Store:
         return relative
 
     def commit(self, manifest: dict) -> None:
-        """Publish `manifest` in one step, then delete files it no longer lists."""
+        """Publish `manifest` in one step, then delete the files neither it nor the manifest
+        it replaces lists (a query that read the old manifest can still read its files; they
+        go at the next update), and stray temporary files of killed runs."""
         self.root.mkdir(parents=True, exist_ok=True)
+        previous = self.manifest() or {}
         text = json.dumps({**manifest, "format": FORMAT}, indent=2, sort_keys=True)
         atomic_write(self.manifest_path, lambda tmp: tmp.write_text(text + "\n"))
-        self.remove_unlisted(manifest)
+        self.remove_unlisted([manifest, previous])
 
-    def remove_unlisted(self, manifest: dict) -> None:
-        listed = {entry[kind] for entry in manifest.get("days", {}).values() for kind in KINDS}
+    def remove_unlisted(self, manifests: list) -> None:
+        listed = {entry[kind] for m in manifests for entry in m.get("days", {}).values()
+                  for kind in KINDS}
         for kind in KINDS:
             folder = self.root / kind
             if folder.is_dir():
                 for path in folder.iterdir():
                     if f"{kind}/{path.name}" not in listed:
                         path.unlink(missing_ok=True)
+        for stray in self.root.glob(".manifest.json.*.tmp"):
+            stray.unlink(missing_ok=True)
 
 
 def describe(store) -> dict:

@@ -9,7 +9,7 @@ import pyarrow.compute as pc
 
 from dbmetrics.errors import DbmetricsError
 from dbmetrics.templates.catalog import get_query
-from dbmetrics.templates.header import BOUND, COLUMN_MAP
+from dbmetrics.templates.header import COLUMN_MAP, bound_values
 from dbmetrics.templates.prelude import (CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS,
                                          class_state, column_map, state)
 from dbmetrics.templates.schema import first_line, open_source
@@ -93,9 +93,8 @@ def update(con: duckdb.DuckDBPyConnection, params: dict, store, since: dt.date |
 
 
 def run(con, sql: str, values: dict):
-    bound = {name: values[name] for name in dict.fromkeys(BOUND.findall(sql))}
     try:
-        return con.sql(sql, params=bound).to_arrow_table()
+        return con.sql(sql, params=bound_values(sql, values)).to_arrow_table()
     except duckdb.Error as exc:
         raise DbmetricsError(f"partials: computing the state failed: {first_line(exc)}") from exc
 

@@ -20,9 +20,15 @@ ENV_VAR = "DBMETRICS_QUERY_PATH"
 def user_dirs(query_dirs=None) -> list:
     """Folders passed in, then those in DBMETRICS_QUERY_PATH; each must exist."""
     env = [d for d in os.environ.get(ENV_VAR, "").split(os.pathsep) if d.strip()]
-    dirs = [Path(d).expanduser() for d in [*(query_dirs or []), *env]]
-    for d in dirs:
-        if not d.is_dir():
+    dirs = []
+    for text in [*(query_dirs or []), *env]:
+        try:
+            d = Path(text).expanduser()
+            exists = d.is_dir()
+        except (RuntimeError, ValueError, OSError) as exc:
+            raise DbmetricsError(f"query folder `{text}` is not a usable path ({exc})") from None
+        dirs.append(d)
+        if not exists:
             raise DbmetricsError(f"query folder `{d}` does not exist or is not a folder "
                                  f"(from query_dirs or {ENV_VAR}); create it or drop it")
     return dirs

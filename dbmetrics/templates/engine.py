@@ -8,14 +8,13 @@ of `prelude.state`. Same kernel, same aggregation: the result equals the UDF rou
 """
 
 import duckdb
-import numpy as np
 import pyarrow as pa
 
 from dbmetrics.arrow_lists import integer_column, score_matrix
 from dbmetrics.kernels import row_stats
 from dbmetrics.udf_adapters import LOGITS_PAD, PROBS_PAD, ROW_STATS_TYPE, row_stats_struct
 
-from .header import BOUND
+from .header import bound_values
 from .prelude import KINDS, ColumnMap, predictions, state
 
 BATCH_ROWS = 16384
@@ -23,10 +22,6 @@ ROWS_VIEW = "dbmetrics_row_stats"
 STATE_VIEW = "dbmetrics_state"
 KERNELS = {"logit_row_stats": (row_stats.logit_row_stats, LOGITS_PAD),
            "prob_row_stats": (row_stats.prob_row_stats, PROBS_PAD)}
-
-
-def bind(sql: str, values: dict) -> dict:
-    return {name: values[name] for name in dict.fromkeys(BOUND.findall(sql))}
 
 
 def with_row_stats(batch: pa.RecordBatch, kernel, pad, bins: int) -> pa.RecordBatch:
@@ -44,7 +39,7 @@ def compute_state(con: duckdb.DuckDBPyConnection, cmap: ColumnMap, values: dict,
     """STATE for the log (or the time window) as an Arrow table; memory stays one batch."""
     kernel, pad = KERNELS[KINDS[cmap.kind][0]]
     source_sql = predictions(cmap, window)
-    reader = con.sql(source_sql, params=bind(source_sql, values)).to_arrow_reader(BATCH_ROWS)
+    reader = con.sql(source_sql, params=bound_values(source_sql, values)).to_arrow_reader(BATCH_ROWS)
     fields = [f for f in reader.schema if f.name != "scores"] + [pa.field("stats", ROW_STATS_TYPE)]
     rows = pa.RecordBatchReader.from_batches(
         pa.schema(fields), (with_row_stats(b, kernel, pad, int(values["bins"])) for b in reader))
@@ -52,7 +47,7 @@ def compute_state(con: duckdb.DuckDBPyConnection, cmap: ColumnMap, values: dict,
     try:
         cursor.register(ROWS_VIEW, rows)
         state_sql = state(cmap, rows=ROWS_VIEW)
-        return cursor.sql(state_sql, params=bind(state_sql, values)).to_arrow_table()
+        return cursor.sql(state_sql, params=bound_values(state_sql, values)).to_arrow_table()
     except (duckdb.Error, pa.ArrowException):
         # An error inside the stream (a corrupt file, a bad cast) reaches us wrapped and
         # without its context; the UDF route over the same SQL reports it as DuckDB words it.
@@ -61,7 +56,7 @@ def compute_state(con: duckdb.DuckDBPyConnection, cmap: ColumnMap, values: dict,
         cursor.close()
         reader.close()
     udf_sql = state(cmap, window)
-    return con.sql(udf_sql, params=bind(udf_sql, values)).to_arrow_table()
+    return con.sql(udf_sql, params=bound_values(udf_sql, values)).to_arrow_table()
 
 
 def materialized_state(con, cmap: ColumnMap, values: dict) -> str:

@@ -39,6 +39,13 @@ NAME = re.compile(r"[a-z][a-z0-9_]*")
 SPEC = re.compile(r"(\w+\([^()]*\)|[^,]*)\s*(?:,(.*))?")
 BOUND = re.compile(r"\$([A-Za-z_][A-Za-z0-9_]*)")
 PLACEHOLDER = re.compile(r"\{\{\s*([^{}]*?)\s*\}\}")
+LITERALS = re.compile(r'"(?:[^"]|"")*"|\'(?:[^\']|\'\')*\'|--[^\n]*')  # and comments
+
+
+def bound_values(sql: str, values: dict) -> dict:
+    """The values of exactly the `$names` the SQL uses; a `$` inside a quoted identifier, a
+    string or a comment is not a parameter."""
+    return {n: values[n] for n in dict.fromkeys(BOUND.findall(LITERALS.sub("", sql)))}
 
 
 @dataclass(frozen=True)

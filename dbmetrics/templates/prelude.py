@@ -117,8 +117,9 @@ def check_type(source: Source, col: str, role: str, prefixes: tuple, wanted: str
 
 def class_index(cmap: ColumnMap, expr: str) -> str:
     """A label expression as a BIGINT class index; unknown class names become -1 (bad)."""
-    if not cmap.classes:
-        return f"CAST({expr} AS BIGINT)"
+    if not cmap.classes:  # a label too large for BIGINT is a bad label, not a failed query
+        return (f"CASE WHEN {expr} IS NULL THEN NULL "
+                f"ELSE coalesce(TRY_CAST({expr} AS BIGINT), -1) END")
     return (f"CASE WHEN {expr} IS NULL THEN NULL ELSE coalesce(list_position("
             f"list_transform(string_split($classes, ','), lambda c: trim(c)), "
             f"CAST({expr} AS VARCHAR)) - 1, -1) END")

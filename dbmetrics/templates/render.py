@@ -11,7 +11,7 @@ import duckdb
 from dbmetrics.errors import DbmetricsError
 
 from .catalog import get_query
-from .header import BOUND, COLUMN_MAP, PLACEHOLDER, QueryInfo
+from .header import COLUMN_MAP, PLACEHOLDER, QueryInfo, bound_values
 from .prelude import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS, column_map, fragments
 from .engine import materialized_state
 from .schema import open_source, quote
@@ -75,7 +75,7 @@ def render_info(con, info: QueryInfo, params: dict, included: dict,
     for key, inner in included.items():
         filled[key] = PLACEHOLDER.sub(lambda m: fill(m.group(1), filled, inner), inner.body)
     sql = PLACEHOLDER.sub(lambda m: fill(m.group(1), filled, info), info.body)
-    return sql, {n: values[n] for n in dict.fromkeys(BOUND.findall(sql))}
+    return sql, bound_values(sql, values)
 
 
 def checked_names(p, text) -> str:

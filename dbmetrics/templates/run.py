@@ -7,7 +7,7 @@ from dbmetrics.errors import DbmetricsError
 
 from .engine import STATE_VIEW
 from .render import render_query
-from .schema import first_line
+from .schema import first_line, open_source
 
 
 def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict,
@@ -21,7 +21,7 @@ def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict,
         sql, bound = render_query(con, name, params, query_dirs, materialize=True)
         table = con.sql(sql, params=bound).to_arrow_table()
     except duckdb.Error as exc:
-        raise DbmetricsError(f"query `{name}` failed: {first_line(exc)}") from exc
+        raise DbmetricsError(f"query `{name}` failed: {explain(con, params, exc)}") from exc
     finally:
         if con.sql(f"SELECT 1 FROM duckdb_views() WHERE view_name = '{STATE_VIEW}'").fetchall():
             con.unregister(STATE_VIEW)
@@ -31,3 +31,20 @@ def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict,
                              "(an input column shares a computed column's name); rename it "
                              "in a view")
     return table
+
+
+def explain(con, params: dict, exc: duckdb.Error) -> str:
+    """DuckDB's first line, and for a Parquet log that cannot be decoded, which file."""
+    from dbmetrics.check.files import is_parquet, unreadable  # the check builds on templates
+
+    text = "".join(c for c in first_line(exc) if c.isprintable())
+    logs = params.get("logs")
+    if logs:
+        try:
+            source = open_source(con, "logs", logs)
+            found = unreadable(con, source) if is_parquet(source) else None
+        except (DbmetricsError, duckdb.Error):
+            found = None
+        if found:
+            return f"cannot read {found[0]}: {found[1]}"
+    return text

@@ -49,8 +49,13 @@ def open_source(con: duckdb.DuckDBPyConnection, param: str, text: str) -> Source
     if table is not None:
         return described(con, param, table, {}, text)
     path = text
-    if Path(text).expanduser().is_dir():
-        path = str(Path(text).expanduser() / "**" / "*.parquet")
+    try:
+        folder = Path(text).expanduser()
+        is_folder = folder.is_dir()
+    except (RuntimeError, ValueError, OSError) as exc:
+        raise DbmetricsError(f"{param}: `{text}` is not a usable path ({exc})") from None
+    if is_folder:
+        path = str(folder / "**" / "*.parquet")
     if path.lower().endswith(CSV_SUFFIXES):
         sql = f"read_csv(${param}, auto_detect = true)"
     else:

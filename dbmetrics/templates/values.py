@@ -12,13 +12,15 @@ from dbmetrics.errors import DbmetricsError
 from .header import Param, QueryInfo
 
 INTEGER = re.compile(r"[+-]?[0-9]+")
+EMPTY_MEANS_NONE = ("label_col",)  # label_col= : a log without labels
 NUMBER = re.compile(r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?")
 
 
 def with_defaults(info: QueryInfo, params: dict) -> dict:
     """Every declared parameter -> its text: as given, else its default, else None.
 
-    Empty text given means "none" (e.g. label_col= for label-free logs), not the default.
+    Empty text given means "none" where that makes sense (label_col= for label-free logs,
+    or an optional parameter); a parameter with any other default cannot be emptied.
     Unknown names and missing required parameters are errors.
     """
     declared = {p.name: p for p in info.params}
@@ -30,6 +32,9 @@ def with_defaults(info: QueryInfo, params: dict) -> dict:
     for p in info.params:
         given = params.get(p.name)
         text = p.default if given is None else (str(given).strip() or None)
+        if text is None and p.default is not None and p.name not in EMPTY_MEANS_NONE:
+            raise DbmetricsError(f"parameter `{p.name}` cannot be empty; leave it out for its "
+                                 f"default ({p.default}) or give a value")
         if text is None and p.required:
             raise DbmetricsError(f"query `{info.name}` needs parameter `{p.name}` ({p.help}); "
                                  f"pass --set {p.name}=...")
