@@ -335,22 +335,50 @@ def rollup_pandas(ctx):
     return run
 
 
-# --- Incremental partials (later work) -------------------------------------------------
+# --- Incremental partials ------------------------------------------------------------
 
-def partials_update(ctx):
-    """Hook for `dbmetrics partials` (a per-day state store updated incrementally).
-
-    Not written yet: when dbmetrics.partials exists, time here (1) building the store from
-    the whole log and (2) updating it after one more day of logs arrives, and compare the
-    rollup read from the store with rollup_template. Until then the runner skips it.
-    """
-    raise NotImplementedError("dbmetrics.partials exists but this hook is not written yet: "
-                              "fill in bench/methods.py:partials_update")
+def partials_params(ctx) -> dict:
+    return {"logs": ctx.scan, "segment_cols": "segment", "bins": str(BINS), "time_col": "ts",
+            "scores_col": "logits", "label_col": "label", "version_col": "model_version",
+            "scores_kind": "logits"}
 
 
-def partials_available() -> bool:
-    import importlib.util
-    return importlib.util.find_spec("dbmetrics.partials") is not None
+def rollup_from_store(con, store) -> list:
+    from dbmetrics.templates import run_query
+    return rows_of(run_query(con, "rollup", {"partials": str(store), "segment_cols": "segment",
+                                             "grain": "week"}))
+
+
+def partials_build(ctx):
+    """Build a partials store from the whole log (every day), then roll it up."""
+    import shutil
+    from pathlib import Path
+
+    from dbmetrics import partials
+    con = connect(ctx, True)
+    store = Path(ctx.temp_dir) / "bench_store_build"
+
+    def run():
+        shutil.rmtree(store, ignore_errors=True)
+        partials.update(con, partials_params(ctx), store)
+        return rollup_from_store(con, store)
+    return run
+
+
+def partials_one_day(ctx):
+    """The weekly job once the store exists: recompute the newest day only (the time filter
+    skips every other row group), then roll the store up. Setup builds the store, untimed."""
+    from pathlib import Path
+
+    from dbmetrics import partials
+    con = connect(ctx, True)
+    store = Path(ctx.temp_dir) / "bench_store_update"
+    partials.update(con, partials_params(ctx), store, full=True)
+
+    def run():
+        partials.update(con, partials_params(ctx), store, relabel_days=1)
+        return rollup_from_store(con, store)
+    return run
 
 
 # name -> (factory, kind, what it is); a factory returns a zero-argument run function
@@ -364,5 +392,6 @@ METHODS = {
     "pandas_scipy": (rollup_pandas, "rollup", "pandas read_parquet + np.stack + scipy + groupby"),
     "ce_udf": (ce_udf, "ce", "avg(cross_entropy(logits, label))"),
     "ce_sql": (ce_sql, "ce", "avg of the SQL cross-entropy (b1)"),
-    "partials": (partials_update, "partials", "dbmetrics partials: build + one-day update"),
+    "partials_build": (partials_build, "rollup", "dbmetrics partials: build the store, roll it up"),
+    "partials_1day": (partials_one_day, "rollup", "partials update of the newest day + roll-up"),
 }

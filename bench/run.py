@@ -25,7 +25,7 @@ if str(REPO) not in sys.path:          # `python bench/run.py` as well as `pytho
 
 from bench import compare, machine                                    # noqa: E402
 from bench.datasets import SIZES, Dataset, ensure                     # noqa: E402
-from bench.methods import METHODS, partials_available                 # noqa: E402
+from bench.methods import METHODS                                     # noqa: E402
 
 MALLOC_ENV = {"MALLOC_MMAP_THRESHOLD_": "33554432"}
 RAM_SHARE = 0.70
@@ -129,8 +129,6 @@ def skip_reason(name: str, ds: Dataset, budget: int, sizes: str) -> str | None:
         return BIG_SKIP[name]
     if ds.big and name == "pandas_scipy" and sizes == "small":
         return "skipped on the big log with --sizes small (about 40 s; the memory guard decides at full)"
-    if name == "partials" and not partials_available():
-        return "skipped: dbmetrics.partials is not importable yet (hook: bench/methods.py)"
     need = estimate_bytes(name, ds)
     if need is not None and need > budget:
         return (f"out of memory / skipped (would need ~{need / GB:.1f} GiB; "

@@ -9,9 +9,9 @@ import pyarrow.compute as pc
 
 from dbmetrics.errors import DbmetricsError
 from dbmetrics.templates.catalog import get_query
-from dbmetrics.templates.header import COLUMN_MAP, bound_values
-from dbmetrics.templates.prelude import (CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS,
-                                         class_state, column_map, state)
+from dbmetrics.templates.header import COLUMN_MAP
+from dbmetrics.templates.engine import compute_states
+from dbmetrics.templates.prelude import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS, column_map
 from dbmetrics.templates.schema import first_line, open_source
 from dbmetrics.templates.values import convert, with_defaults
 
@@ -75,8 +75,7 @@ def update(con: duckdb.DuckDBPyConnection, params: dict, store, since: dt.date |
               "window_end": LATEST}
     for source in sources.values():
         values.update(source.bound)
-    tables = {"state": run(con, state(cmap, window=True), values),
-              "class_state": run(con, class_state(cmap, window=True), values)}
+    tables = dict(zip(("state", "class_state"), engine_states(con, cmap, values)))
     generation = (manifest or {}).get("generation", 0) + 1
     days = {d: e for d, e in (manifest or {}).get("days", {}).items()
             if start is not None and dt.date.fromisoformat(d) < start}
@@ -92,9 +91,9 @@ def update(con: duckdb.DuckDBPyConnection, params: dict, store, since: dt.date |
             "rows_summarised": int(pc.sum(tables["state"].column("rows")).as_py() or 0)}
 
 
-def run(con, sql: str, values: dict):
+def engine_states(con, cmap, values: dict) -> tuple:
     try:
-        return con.sql(sql, params=bound_values(sql, values)).to_arrow_table()
+        return compute_states(con, cmap, values, window=True, classes=True)
     except duckdb.Error as exc:
         raise DbmetricsError(f"partials: computing the state failed: {first_line(exc)}") from exc
 

@@ -1,53 +1,112 @@
-"""The additive STATE in one numpy pass over large batches, summed by DuckDB.
+"""The additive STATE and CLASS_STATE in one numpy pass over large batches.
 
 DuckDB calls a vectorized Python UDF once per 2048 rows, and at small K the fixed cost of
 each call outweighs the arithmetic. Here the normalised `predictions` stream out of DuckDB
 in batches of BATCH_ROWS, the row-statistics kernel behind `logit_row_stats` /
 `prob_row_stats` runs once per batch, and DuckDB sums the rows into STATE with the very SQL
-of `prelude.state`. Same kernel, same aggregation: the result equals the UDF route's.
+of `prelude.state`; the per-class sums are added up per batch in numpy and then by
+DuckDB. Same kernels, same sums: the result equals the UDF route's up to rounding.
 """
 
 import duckdb
+import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
 from dbmetrics.arrow_lists import integer_column, score_matrix
 from dbmetrics.kernels import row_stats
+from dbmetrics.kernels.distributions import as_distribution
+from dbmetrics.kernels.softmax import softmax
 from dbmetrics.udf_adapters import LOGITS_PAD, PROBS_PAD, ROW_STATS_TYPE, row_stats_struct
 
 from .header import bound_values
-from .prelude import KINDS, ColumnMap, predictions, state
+from .prelude import KINDS, ColumnMap, class_state, predictions, state
 
 BATCH_ROWS = 16384
 ROWS_VIEW = "dbmetrics_row_stats"
+CLASSES_VIEW = "dbmetrics_class_partials"
 STATE_VIEW = "dbmetrics_state"
+CLASS_STATE_VIEW = "dbmetrics_class_state"
 KERNELS = {"logit_row_stats": (row_stats.logit_row_stats, LOGITS_PAD),
            "prob_row_stats": (row_stats.prob_row_stats, PROBS_PAD)}
+DISTRIBUTIONS = {"logit_row_stats": softmax, "prob_row_stats": as_distribution}
 
 
-def with_row_stats(batch: pa.RecordBatch, kernel, pad, bins: int) -> pa.RecordBatch:
+def with_row_stats(batch: pa.RecordBatch, st) -> pa.RecordBatch:
     """The batch with `scores` replaced by the `stats` struct the UDF would return."""
-    sm = score_matrix(batch.column("scores"), pad)
-    y, y_present = integer_column(batch.column("label"))
-    stats = row_stats_struct(kernel(sm.values, sm.present, sm.lengths, y, y_present, bins))
+    stats = row_stats_struct(st)
     keep = [i for i, name in enumerate(batch.schema.names) if name != "scores"]
     return pa.RecordBatch.from_arrays([batch.column(i) for i in keep] + [stats],
                                       names=[batch.schema.names[i] for i in keep] + ["stats"])
 
 
-def compute_state(con: duckdb.DuckDBPyConnection, cmap: ColumnMap, values: dict,
-                  window: bool = False) -> pa.Table:
-    """STATE for the log (or the time window) as an Arrow table; memory stays one batch."""
-    kernel, pad = KERNELS[KINDS[cmap.kind][0]]
+def key_codes(columns: list) -> np.ndarray:
+    """One int64 code per row for the combination of the key columns' values."""
+    code = np.zeros(len(columns[0]), np.int64)
+    for col in columns:
+        encoded = pc.dictionary_encode(col)
+        indices = encoded.indices.fill_null(len(encoded.dictionary)).to_numpy()
+        code = code * (len(encoded.dictionary) + 1) + indices
+    return code
+
+
+def class_partials(batch: pa.RecordBatch, sm, st, distribution, keys: list) -> pa.Table | None:
+    """CLASS_STATE of one batch: per day x keys x class, the sum of predicted probabilities,
+    the rows predicting the class and the rows labelled with it (scored rows only; each group
+    lists classes 0 .. its longest row's K - 1, as unnest(range(len(dist))) does)."""
+    rows = np.flatnonzero(st.score_issue == 0)
+    if not len(rows):
+        return None
+    p = distribution(sm.values[rows])
+    k = p.shape[1]
+    key_columns = [batch.column(name).take(pa.array(rows)) for name in ["day", *keys]]
+    _, group = np.unique(key_codes(key_columns), return_inverse=True)
+    order = np.argsort(group, kind="stable")
+    starts = np.flatnonzero(np.r_[True, np.diff(group[order]) != 0])
+    n_groups = len(starts)
+    sums = np.add.reduceat(p[order], starts, axis=0)
+    predicted = np.bincount(group * k + st.predicted[rows], minlength=n_groups * k)
+    labelled = st.label_issue[rows] == 0
+    y, _ = integer_column(batch.column("label"))
+    labels = np.bincount(group[labelled] * k + y[rows][labelled], minlength=n_groups * k)
+    longest = np.maximum.reduceat(sm.lengths[rows][order], starts)
+    g, c = np.nonzero(np.arange(k)[None, :] < longest[:, None])
+    first = pa.array(rows[order[starts]][g])
+    out = {name: batch.column(name).take(first) for name in ["day", *keys]}
+    out.update({"class": pa.array(c, pa.int64()), "sum_prob": pa.array(sums[g, c]),
+                "predicted_rows": pa.array(predicted.reshape(n_groups, k)[g, c]),
+                "label_rows": pa.array(labels.reshape(n_groups, k)[g, c])})
+    return pa.table(out)
+
+
+def compute_states(con: duckdb.DuckDBPyConnection, cmap: ColumnMap, values: dict,
+                   window: bool = False, classes: bool = False) -> tuple:
+    """(STATE, CLASS_STATE or None) for the log (or the time window) as Arrow tables, from
+    one scan; memory stays one batch plus the small per-batch class sums."""
+    kernel_name = KINDS[cmap.kind][0]
+    kernel, pad = KERNELS[kernel_name]
+    distribution = DISTRIBUTIONS[kernel_name]
+    keys = [cmap.version, *cmap.segments]
     source_sql = predictions(cmap, window)
     reader = con.sql(source_sql, params=bound_values(source_sql, values)).to_arrow_reader(BATCH_ROWS)
     fields = [f for f in reader.schema if f.name != "scores"] + [pa.field("stats", ROW_STATS_TYPE)]
-    rows = pa.RecordBatchReader.from_batches(
-        pa.schema(fields), (with_row_stats(b, kernel, pad, int(values["bins"])) for b in reader))
+    per_batch = []
+
+    def batches():
+        for batch in reader:
+            sm = score_matrix(batch.column("scores"), pad)
+            y, y_present = integer_column(batch.column("label"))
+            st = kernel(sm.values, sm.present, sm.lengths, y, y_present, int(values["bins"]))
+            if classes:
+                per_batch.append(class_partials(batch, sm, st, distribution, keys))
+            yield with_row_stats(batch, st)
+
     cursor = con.cursor()  # the streaming result above keeps `con` busy
     try:
-        cursor.register(ROWS_VIEW, rows)
+        cursor.register(ROWS_VIEW, pa.RecordBatchReader.from_batches(pa.schema(fields), batches()))
         state_sql = state(cmap, rows=ROWS_VIEW)
-        return cursor.sql(state_sql, params=bound_values(state_sql, values)).to_arrow_table()
+        state_table = cursor.sql(state_sql, params=bound_values(state_sql, values)).to_arrow_table()
+        return state_table, summed_classes(cursor, per_batch, cmap, reader.schema) if classes else None
     except (duckdb.Error, pa.ArrowException):
         # An error inside the stream (a corrupt file, a bad cast) reaches us wrapped and
         # without its context; the UDF route over the same SQL reports it as DuckDB words it.
@@ -55,11 +114,36 @@ def compute_state(con: duckdb.DuckDBPyConnection, cmap: ColumnMap, values: dict,
     finally:
         cursor.close()
         reader.close()
-    udf_sql = state(cmap, window)
-    return con.sql(udf_sql, params=bound_values(udf_sql, values)).to_arrow_table()
+    udf_state, udf_classes = state(cmap, window), class_state(cmap, window)
+    return (con.sql(udf_state, params=bound_values(udf_state, values)).to_arrow_table(),
+            con.sql(udf_classes, params=bound_values(udf_classes, values)).to_arrow_table()
+            if classes else None)
 
 
-def materialized_state(con, cmap: ColumnMap, values: dict) -> str:
-    """Compute STATE, register it on `con`, and return the SQL that reads it."""
-    con.register(STATE_VIEW, compute_state(con, cmap, values))
-    return f"SELECT * FROM {STATE_VIEW}"
+def summed_classes(cursor, per_batch: list, cmap: ColumnMap, schema: pa.Schema) -> pa.Table:
+    """The per-batch class sums added up per day x keys x class."""
+    parts = [t for t in per_batch if t is not None]
+    if not parts:  # no scored row at all: no class rows, with the right columns
+        parts = [pa.table({**{name: pa.array([], schema.field(name).type)
+                              for name in ["day", cmap.version, *cmap.segments]},
+                           "class": pa.array([], pa.int64()), "sum_prob": pa.array([], pa.float64()),
+                           "predicted_rows": pa.array([], pa.int64()),
+                           "label_rows": pa.array([], pa.int64())})]
+    cursor.register(CLASSES_VIEW, pa.concat_tables(parts, promote_options="permissive"))
+    return cursor.sql(f"""SELECT day, {cmap.keys}, class,
+    fsum(sum_prob) AS sum_prob,
+    sum(predicted_rows)::BIGINT AS predicted_rows,
+    sum(label_rows)::BIGINT AS label_rows
+FROM {CLASSES_VIEW}
+GROUP BY ALL""").to_arrow_table()
+
+
+def materialized_states(con, cmap: ColumnMap, values: dict, classes: bool) -> dict:
+    """Compute STATE (and CLASS_STATE), register them on `con`, return the SQL reading them."""
+    state_table, class_table = compute_states(con, cmap, values, classes=classes)
+    con.register(STATE_VIEW, state_table)
+    fragments = {"state": f"SELECT * FROM {STATE_VIEW}"}
+    if classes:
+        con.register(CLASS_STATE_VIEW, class_table)
+        fragments["class_state"] = f"SELECT * FROM {CLASS_STATE_VIEW}"
+    return fragments

@@ -13,7 +13,7 @@ from dbmetrics.errors import DbmetricsError
 from .catalog import get_query
 from .header import COLUMN_MAP, PLACEHOLDER, QueryInfo, bound_values
 from .prelude import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS, column_map, fragments
-from .engine import materialized_state
+from .engine import materialized_states
 from .schema import open_source, quote
 from .values import convert, split_names, with_defaults
 
@@ -63,9 +63,11 @@ def render_info(con, info: QueryInfo, params: dict, included: dict,
             alias for q in queries for alias in ALIAS.findall(q.body)}
         cmap = column_map(texts, sources, reserved)
         filled.update(fragments(cmap))
-        if materialize and any("{{state}}" in q.body.replace(" ", "") for q in queries):
+        uses = {name for q in queries for name in PLACEHOLDER.findall(q.body)}
+        if materialize and "state" in uses:
             bound = {k: v for s in sources.values() for k, v in s.bound.items()}
-            filled["state"] = materialized_state(con, cmap, {**values, **bound})
+            filled.update(materialized_states(con, cmap, {**values, **bound},
+                                              classes="class_state" in uses))
     for p in info.params:
         if p.kind == "source" and p.name in sources:
             filled[p.name] = sources[p.name].sql

@@ -5,7 +5,7 @@ import pyarrow as pa
 
 from dbmetrics.errors import DbmetricsError
 
-from .engine import STATE_VIEW
+from .engine import CLASS_STATE_VIEW, STATE_VIEW
 from .render import render_query
 from .schema import first_line, open_source
 
@@ -23,8 +23,9 @@ def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict,
     except duckdb.Error as exc:
         raise DbmetricsError(f"query `{name}` failed: {explain(con, params, exc)}") from exc
     finally:
-        if con.sql(f"SELECT 1 FROM duckdb_views() WHERE view_name = '{STATE_VIEW}'").fetchall():
-            con.unregister(STATE_VIEW)
+        registered = {row[0] for row in con.sql("SELECT view_name FROM duckdb_views()").fetchall()}
+        for view in {STATE_VIEW, CLASS_STATE_VIEW} & registered:
+            con.unregister(view)
     repeated = sorted({c for c in table.column_names if table.column_names.count(c) > 1})
     if repeated:
         raise DbmetricsError(f"query `{name}` returns column(s) {', '.join(repeated)} twice "
