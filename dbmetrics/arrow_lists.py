@@ -39,9 +39,12 @@ def non_null_mask(arr: pa.Array) -> np.ndarray:
     return ~arr.is_null().to_numpy(zero_copy_only=False)
 
 
-def float_values(child: pa.Array) -> np.ndarray:
-    """Child values as float64 (NULL elements become NaN)."""
-    return child.to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
+def float_values(child: pa.Array, dtype=np.float64) -> np.ndarray:
+    """Child values as `dtype` (None: as stored, FLOAT or DOUBLE); NULL elements become NaN."""
+    values = child.to_numpy(zero_copy_only=False)
+    if values.dtype.kind != "f":
+        values = values.astype(np.float64)
+    return values if dtype is None else values.astype(dtype, copy=False)
 
 
 def offsets_and_child(arr: pa.Array):
@@ -53,24 +56,26 @@ def offsets_and_child(arr: pa.Array):
     return arr.offsets.to_numpy().astype(np.int64, copy=False), arr.values
 
 
-def score_matrix(arr, pad: float) -> ScoreMatrix:
-    """Padded float64 matrix view of a list column."""
+def score_matrix(arr, pad: float, dtype=np.float64) -> ScoreMatrix:
+    """Padded matrix view of a list column, float64 (or, with dtype=None, the stored float
+    type when every row has the same K: a caller that converts anyway saves a copy)."""
     arr = single_array(arr)
     if not (pa.types.is_list(arr.type) or pa.types.is_large_list(arr.type)
             or pa.types.is_fixed_size_list(arr.type)):
         raise TypeError(f"expected a list of numbers, got {arr.type}")
     n = len(arr)
     offsets, child = offsets_and_child(arr)
+    child = child.slice(offsets[0], offsets[-1] - offsets[0])  # only this slice's values
+    offsets = offsets - offsets[0]
     lengths = np.diff(offsets)
     lengths[~non_null_mask(arr)] = 0
     present = lengths > 0
     k = int(lengths.max()) if n else 0
-    values = float_values(child)
-    start = offsets[0]
+    values = float_values(child, dtype)
     if k == 0:
         return ScoreMatrix(np.full((n, 1), np.nan), present, lengths)
-    if present.all() and np.all(lengths == k) and offsets[-1] - start == n * k:
-        mat = values[start:start + n * k].reshape(n, k)
+    if present.all() and np.all(lengths == k) and offsets[-1] == n * k:
+        mat = values.reshape(n, k)
     elif np.all(lengths[present] == k):
         mat = np.full((n, k), np.nan)
         mat[present] = values[offsets[:-1][present, None] + np.arange(k)]

@@ -13,10 +13,10 @@ from duckdb.sqltypes import BIGINT, BOOLEAN, DOUBLE, INTEGER, VARCHAR
 from .kernels import distributions as dist
 from .kernels import losses, predictions, row_stats, softmax
 from .udf_adapters import (LOGITS_PAD, PROBS_PAD, ROW_STATS_TYPE, binary_and_label_to_doubles,
-                           binary_logit_loss, binary_logit_matrix, binary_prob_matrix, confidence_to_bin, correct_class,
-                           lists_and_label_to_doubles, lists_to_class, lists_to_doubles,
-                           lists_to_lists, row_stats_udf, temperature_grid_udf,
-                           two_lists_to_doubles)
+                           binary_logit_loss, binary_logit_matrix, binary_prob_matrix,
+                           confidence_to_bin, correct_class, lists_and_label_to_doubles,
+                           lists_to_class, lists_to_doubles, lists_to_lists, row_stats_udf,
+                           temperature_grid_udf, two_lists_to_doubles)
 
 SCORES = duckdb.list_type(DOUBLE)
 ROW_STATS = duckdb.struct_type({f.name: {
@@ -39,11 +39,8 @@ def probs(kernel):
 
 
 def of_softmax(kernel):
+    """Apply a kernel to the softmax probabilities of logits."""
     return lambda z, *rest: kernel(softmax.softmax(z), *rest)
-
-
-def binary_ce(p, y):
-    return losses.cross_entropy_probs(p, y)
 
 
 FUNCTIONS = (
@@ -75,7 +72,7 @@ FUNCTIONS = (
                 "log-loss of one logit (log-odds of class 1) against a 0/1 label"),
     SqlFunction("binary_cross_entropy_prob", (DOUBLE, BIGINT), DOUBLE,
                 binary_and_label_to_doubles("binary_cross_entropy_prob", binary_prob_matrix,
-                                            binary_ce),
+                                            losses.cross_entropy_probs),
                 "log-loss of one probability of class 1 against a 0/1 label"),
     SqlFunction("kl_divergence", (SCORES, SCORES), DOUBLE,
                 two_lists_to_doubles("kl_divergence", lambda p, q: dist.kl_divergence(

@@ -198,7 +198,7 @@ def row_stats_struct(st: RowStats) -> pa.StructArray:
 
 def row_stats_udf(kernel, pad):
     def udf(scores, labels, bins):
-        sm = score_matrix(scores, pad)
+        sm = score_matrix(scores, pad, dtype=None)  # the kernel converts once, transposing
         y, y_present = integer_column(labels)
         b, b_present = integer_column(bins)
         counts = np.unique(b[b_present])

@@ -116,7 +116,7 @@ def test_prediction_fields_are_consistent(module_con, rows, data):
     for (pred, conf, marg, brier, ce, h, s), r, y in zip(got, rows, labels):
         k = len(r)
         assert pred == int(np.argmax(r))                                    # numpy: first maximum
-        assert 1 / k * (1 - 4 * EPS) <= conf <= 1
+        assert conf >= 1 / k * (1 - 4 * EPS) and conf <= 1
         assert 0 <= marg <= conf
         assert 0 <= brier <= 2 + 4 * EPS                                     # Brier (1950) range
         assert ce >= 0 and -4 * EPS <= h <= math.log(k) * (1 + 4 * EPS)

@@ -105,3 +105,19 @@ def test_float32_logits_are_computed_in_float64(con):
     z32 = np.array([0.1, 0.2, 0.7], np.float32)
     got = one(con, "SELECT log_softmax([0.1, 0.2, 0.7]::FLOAT[])")
     assert got == pytest.approx(special.log_softmax(z32.astype(np.float64)).tolist(), rel=1e-14)
+
+
+@pytest.mark.parametrize("k", [2, 3, 7, 8, 9, 16, 100, 129, 1000])
+def test_logits_give_scipys_bits_exactly(con, k):
+    # scipy.special.log_softmax: the same operations in the same order, so tiny losses
+    # (where log(1 + x) keeps only ~1e-16 absolute accuracy) agree to the last bit too.
+    rng = np.random.default_rng(k)
+    z = rng.normal(size=(300, k)) * 8
+    y = rng.integers(0, k, 300)
+    got = con.sql("SELECT cross_entropy(z, y), log_softmax(z), logit_row_stats(z, y, 15).loss "
+                  "FROM (SELECT unnest($z) AS z, unnest($y) AS y)",
+                  params={"z": z.tolist(), "y": y.tolist()}).fetchall()
+    ref = special.log_softmax(z, axis=1)
+    assert [r[0] for r in got] == (-ref[np.arange(300), y]).tolist()
+    assert [r[1] for r in got] == ref.tolist()
+    assert [r[2] for r in got] == (-ref[np.arange(300), y]).tolist()

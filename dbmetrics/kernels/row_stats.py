@@ -21,6 +21,7 @@ import numpy as np
 
 from .distributions import SUM_TOLERANCE
 from .predictions import calibration_bin
+from .softmax import SHORT_AXIS, class_sum
 
 MISSING, INVALID, NOT_A_DISTRIBUTION = 1, 2, 3
 UNLABELLED, LABEL_OUT_OF_RANGE = 1, 2
@@ -57,13 +58,17 @@ def label_issues(y: np.ndarray, y_present: np.ndarray, lengths: np.ndarray) -> n
 
 
 def transposed(values: np.ndarray) -> np.ndarray:
-    """(K, n) C-contiguous float64 copy of an (n, K) block."""
+    """A (K, n) float64 copy of an (n, K) block, laid out so that reductions over the K
+    classes run along memory: class-major for small K, row-major (a transposed view of
+    the copy) for large K, where each row is long enough on its own."""
+    if values.shape[1] > SHORT_AXIS:
+        return values.astype(np.float64).T
     return np.array(values.T, dtype=np.float64, order="C")
 
 
 def first_argmax(t: np.ndarray, top) -> np.ndarray:
     """Index of the first entry equal to the column maximum `top` in a (K, n) block."""
-    if t.shape[0] > 32:
+    if t.shape[0] > SHORT_AXIS:
         return t.argmax(axis=0).astype(np.int32)
     idx = np.zeros(t.shape[1], np.int32)
     for j in range(t.shape[0] - 1, 0, -1):
@@ -114,7 +119,7 @@ def logit_row_stats(z, present, lengths, y, y_present, bins) -> RowStats:
         zt -= m
         top = first_argmax(zt, 0.0)
         pt = np.exp(zt)
-        s = pt.sum(axis=0)  # for K < 8 the same additions, in the same order, as scipy's
+        s = class_sum(pt, axis=0)  # the additions of scipy's log_softmax, bit for bit
         log_s = np.log(s)
         pt /= s
         loss = log_s - zt[np.clip(y, 0, zt.shape[0] - 1), cols]
@@ -134,7 +139,7 @@ def prob_row_stats(p, present, lengths, y, y_present, bins) -> RowStats:
     is not a distribution. loss = -log p_y, confidence = max p, entropy = -sum p log p.
     """
     pt = transposed(p)
-    total = p.sum(axis=1)  # the same summation order as as_distribution
+    total = p.sum(axis=1, dtype=np.float64)  # the same additions as as_distribution
     finite = np.isfinite(total)
     with np.errstate(invalid="ignore"):
         is_dist = finite & (np.abs(total - 1.0) <= SUM_TOLERANCE) & (pt.min(axis=0) >= 0)

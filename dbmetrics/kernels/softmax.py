@@ -28,6 +28,32 @@ def row_max(z: np.ndarray) -> np.ndarray:
     return m
 
 
+def class_sum(e: np.ndarray, axis: int) -> np.ndarray:
+    """Sum over the classes (`axis`), with exactly the additions, in exactly the order, of
+    numpy's pairwise sum along a contiguous row (so of e.sum(axis=1) on an (n, K) array and
+    of scipy.special.log_softmax), but done a whole class at a time: much faster for short
+    rows, and the same bits whatever the layout. K > 128 falls back to numpy's own sum.
+    """
+    k = e.shape[axis]
+    if k > 128:
+        return np.ascontiguousarray(np.moveaxis(e, axis, -1)).sum(axis=-1)
+    col = (lambda j: e[:, j]) if axis == 1 else (lambda j: e[j])
+    if k < 8:
+        total = np.zeros(e.shape[1 - axis])
+        for j in range(k):
+            total += col(j)
+        return total
+    lanes = [col(j).copy() for j in range(8)]
+    full = k - k % 8
+    for start in range(8, full, 8):
+        for j in range(8):
+            lanes[j] += col(start + j)
+    total = ((lanes[0] + lanes[1]) + (lanes[2] + lanes[3])) + ((lanes[4] + lanes[5]) + (lanes[6] + lanes[7]))
+    for j in range(full, k):
+        total += col(j)
+    return total
+
+
 def row_argmax(z: np.ndarray) -> np.ndarray:
     """0-based index of the first row maximum (ties go to the lowest class), int32."""
     if z.shape[1] > SHORT_AXIS:
@@ -56,7 +82,7 @@ def shifted(z: np.ndarray):
     with np.errstate(invalid="ignore", over="ignore"):
         d = z - m[:, None]
         e = np.exp(d)
-        s = e.sum(axis=1)
+        s = class_sum(e, axis=1)
     return d, e, s, m, ok
 
 

@@ -23,6 +23,8 @@ from .header import bound_values
 from .prelude import KINDS, ColumnMap, class_state, predictions, state
 
 BATCH_ROWS = 16384
+BATCH_VALUES = 1 << 21
+MIN_ROWS = 256
 ROWS_VIEW = "dbmetrics_row_stats"
 CLASSES_VIEW = "dbmetrics_class_partials"
 STATE_VIEW = "dbmetrics_state"
@@ -30,6 +32,17 @@ CLASS_STATE_VIEW = "dbmetrics_class_state"
 KERNELS = {"logit_row_stats": (row_stats.logit_row_stats, LOGITS_PAD),
            "prob_row_stats": (row_stats.prob_row_stats, PROBS_PAD)}
 DISTRIBUTIONS = {"logit_row_stats": softmax, "prob_row_stats": as_distribution}
+
+
+def sliced(reader):
+    """The reader's batches cut to about BATCH_VALUES scores each: numpy's temporaries then
+    stay in cache whatever K is (16384 rows at K = 10, 2048 at K = 1000)."""
+    for batch in reader:
+        offsets = batch.column("scores").offsets
+        values = offsets[-1].as_py() - offsets[0].as_py() if len(batch) else 0
+        step = max(MIN_ROWS, BATCH_VALUES * len(batch) // max(values, 1))
+        for start in range(0, len(batch), step):
+            yield batch.slice(start, step)
 
 
 def with_row_stats(batch: pa.RecordBatch, st) -> pa.RecordBatch:
@@ -40,14 +53,15 @@ def with_row_stats(batch: pa.RecordBatch, st) -> pa.RecordBatch:
                                       names=[batch.schema.names[i] for i in keep] + ["stats"])
 
 
-def key_codes(columns: list) -> np.ndarray:
-    """One int64 code per row for the combination of the key columns' values."""
-    code = np.zeros(len(columns[0]), np.int64)
+def group_ids(columns: list) -> np.ndarray:
+    """Dense group number (0 .. groups - 1) per row for the combination of the key columns'
+    values (NULL is a value); renumbered after each column, so it never overflows."""
+    group = np.zeros(len(columns[0]), np.int64)
     for col in columns:
         encoded = pc.dictionary_encode(col)
         indices = encoded.indices.fill_null(len(encoded.dictionary)).to_numpy()
-        code = code * (len(encoded.dictionary) + 1) + indices
-    return code
+        _, group = np.unique(group * (len(encoded.dictionary) + 1) + indices, return_inverse=True)
+    return group
 
 
 def class_partials(batch: pa.RecordBatch, sm, st, distribution, keys: list) -> pa.Table | None:
@@ -57,10 +71,10 @@ def class_partials(batch: pa.RecordBatch, sm, st, distribution, keys: list) -> p
     rows = np.flatnonzero(st.score_issue == 0)
     if not len(rows):
         return None
-    p = distribution(sm.values[rows])
+    p = distribution(sm.values[rows].astype(np.float64))
     k = p.shape[1]
     key_columns = [batch.column(name).take(pa.array(rows)) for name in ["day", *keys]]
-    _, group = np.unique(key_codes(key_columns), return_inverse=True)
+    group = group_ids(key_columns)
     order = np.argsort(group, kind="stable")
     starts = np.flatnonzero(np.r_[True, np.diff(group[order]) != 0])
     n_groups = len(starts)
@@ -93,8 +107,8 @@ def compute_states(con: duckdb.DuckDBPyConnection, cmap: ColumnMap, values: dict
     per_batch = []
 
     def batches():
-        for batch in reader:
-            sm = score_matrix(batch.column("scores"), pad)
+        for batch in sliced(reader):
+            sm = score_matrix(batch.column("scores"), pad, dtype=None)
             y, y_present = integer_column(batch.column("label"))
             st = kernel(sm.values, sm.present, sm.lengths, y, y_present, int(values["bins"]))
             if classes:
