@@ -21,9 +21,11 @@ from dbmetrics.udf_adapters import LOGITS_PAD, PROBS_PAD, ROW_STATS_TYPE, row_st
 
 from .header import bound_values
 from .prelude import KINDS, ColumnMap, class_state, predictions, state
+from .schema import quote
 
 BATCH_ROWS = 16384
 BATCH_VALUES = 1 << 21
+SHORT_K = 64
 MIN_ROWS = 256
 ROWS_VIEW = "dbmetrics_row_stats"
 CLASSES_VIEW = "dbmetrics_class_partials"
@@ -150,6 +152,19 @@ def summed_classes(cursor, per_batch: list, cmap: ColumnMap, schema: pa.Schema) 
     sum(label_rows)::BIGINT AS label_rows
 FROM {CLASSES_VIEW}
 GROUP BY ALL""").to_arrow_table()
+
+
+def engine_pays(con, cmap: ColumnMap, bound: dict, classes: bool) -> bool:
+    """Whether the engine beats one UDF call per 2048 rows (measured, bench/README.md): for
+    the class state always (the UDF route unnests every probability), for STATE alone when
+    the rows are short (K <= SHORT_K, judged on the first rows), since DuckDB runs the UDF on
+    every core while the engine's numpy runs on one."""
+    if classes or cmap.kind.startswith("binary_"):
+        return True
+    sql = (f"SELECT max(len(s)) FROM (SELECT logs.{quote(cmap.scores)} AS s "
+           f"FROM {cmap.logs.sql} AS logs LIMIT 2048)")
+    k = con.sql(sql, params=bound_values(sql, bound)).fetchall()[0][0]
+    return k is None or k <= SHORT_K
 
 
 def materialized_states(con, cmap: ColumnMap, values: dict, classes: bool) -> dict:

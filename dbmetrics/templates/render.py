@@ -13,7 +13,7 @@ from dbmetrics.errors import DbmetricsError
 from .catalog import get_query
 from .header import COLUMN_MAP, PLACEHOLDER, QueryInfo, bound_values
 from .prelude import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS, column_map, fragments
-from .engine import materialized_states
+from .engine import engine_pays, materialized_states
 from .schema import open_source, quote
 from .values import convert, split_names, with_defaults
 
@@ -64,8 +64,9 @@ def render_info(con, info: QueryInfo, params: dict, included: dict,
         cmap = column_map(texts, sources, reserved)
         filled.update(fragments(cmap))
         uses = {name for q in queries for name in PLACEHOLDER.findall(q.body)}
-        if materialize and "state" in uses:
-            bound = {k: v for s in sources.values() for k, v in s.bound.items()}
+        bound = {k: v for s in sources.values() for k, v in s.bound.items()}
+        if materialize and "state" in uses and engine_pays(con, cmap, bound,
+                                                            "class_state" in uses):
             filled.update(materialized_states(con, cmap, {**values, **bound},
                                               classes="class_state" in uses))
     for p in info.params:
