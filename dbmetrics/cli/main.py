@@ -50,7 +50,7 @@ def cli(ctx, project_file, database, memory_limit, threads, quiet, verbose):
 
     \b
     Exit status: 0 ok; 1 error (one line on stderr); 2 bad command line;
-    3 flagged rows (--fail-on-flag); 130 interrupted.
+    3 flagged rows (--fail-on-flag); 4 problems found (check); 130 interrupted.
     Environment: DBMETRICS_PROJECT, DBMETRICS_DATABASE, and DBMETRICS_QUERY_PATH
     (extra saved-query folders, separated by the path separator).
     """
