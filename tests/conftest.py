@@ -1,4 +1,6 @@
 """Shared pytest fixtures."""
+import numpy as np
+import pyarrow as pa
 import pytest
 
 import dbmetrics
@@ -18,3 +20,28 @@ def module_con():
     connection = dbmetrics.connect()
     yield connection
     connection.close()
+
+
+def assert_same_table(expected: pa.Table, got: pa.Table) -> None:
+    """Equal column names, keys and values; floats to rel 1e-12 or abs 1e-12 (the same sums
+    in another order; differences near 0 such as cross_entropy_z need the absolute bound)."""
+    assert expected.column_names == got.column_names
+    keys = [(c, "ascending") for c in expected.column_names
+            if not pa.types.is_floating(expected.schema.field(c).type)]
+    a, b = expected.sort_by(keys), got.sort_by(keys)
+    assert a.num_rows == b.num_rows
+    for name in expected.column_names:
+        x, y = a.column(name).to_pylist(), b.column(name).to_pylist()
+        if pa.types.is_floating(expected.schema.field(name).type):
+            xs = np.array([np.nan if v is None else v for v in x], float)
+            ys = np.array([np.nan if v is None else v for v in y], float)
+            np.testing.assert_allclose(ys, xs, rtol=1e-12, atol=1e-12, err_msg=name)
+            assert (np.isnan(xs) == np.isnan(ys)).all(), name
+        else:
+            assert x == y, name
+
+
+@pytest.fixture
+def same_table():
+    """assert_same_table, for test modules (which cannot import each other)."""
+    return assert_same_table

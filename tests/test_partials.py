@@ -9,7 +9,6 @@ store intact; a store answers only for the keys it was built with.
 import datetime as dt
 import json
 
-import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
@@ -28,30 +27,11 @@ def demo(tmp_path_factory):
     return {"logs": str(paths["logs"]), "labels": str(paths["labels"]), "id_col": "prediction_id"}
 
 
-def same_table(direct: pa.Table, rolled: pa.Table) -> None:
-    """Equal column names, keys and values; floats to rel 1e-12 or abs 1e-12 (the same sums
-    in another order; differences near 0 such as cross_entropy_z need the absolute bound)."""
-    assert direct.column_names == rolled.column_names
-    keys = [(c, "ascending") for c in direct.column_names
-            if not pa.types.is_floating(direct.schema.field(c).type)]
-    a, b = direct.sort_by(keys), rolled.sort_by(keys)
-    assert a.num_rows == b.num_rows
-    for name in direct.column_names:
-        x, y = a.column(name).to_pylist(), b.column(name).to_pylist()
-        if pa.types.is_floating(direct.schema.field(name).type):
-            xs = np.array([np.nan if v is None else v for v in x], float)
-            ys = np.array([np.nan if v is None else v for v in y], float)
-            np.testing.assert_allclose(ys, xs, rtol=1e-12, atol=1e-12, err_msg=name)
-            assert (np.isnan(xs) == np.isnan(ys)).all(), name
-        else:
-            assert x == y, name
-
-
 @pytest.mark.parametrize("query", ["rollup", "calibration", "drift"])
 @pytest.mark.parametrize("stored, asked", [("region,channel", "region,channel"),
                                            ("region,channel", "region"),
                                            ("region,channel", ""), ("", "")])
-def test_templates_from_a_store_equal_the_direct_computation(con, demo, tmp_path, query,
+def test_templates_from_a_store_equal_the_direct_computation(same_table, con, demo, tmp_path, query,
                                                              stored, asked):
     partials.update(con, {**demo, "segment_cols": stored}, tmp_path / "store")
     direct = run_query(con, query, {**demo, "segment_cols": asked})
@@ -59,7 +39,7 @@ def test_templates_from_a_store_equal_the_direct_computation(con, demo, tmp_path
     same_table(direct, rolled)
 
 
-def test_an_update_recomputes_only_recent_days_and_never_double_counts(con, demo, tmp_path):
+def test_an_update_recomputes_only_recent_days_and_never_double_counts(same_table, con, demo, tmp_path):
     store = tmp_path / "store"
     first = partials.update(con, demo, store)
     assert first["days_written"] == 21 and first["recomputed_from"] is None
@@ -71,7 +51,7 @@ def test_an_update_recomputes_only_recent_days_and_never_double_counts(con, demo
     same_table(run_query(con, "rollup", demo), rolled)
 
 
-def test_new_days_and_late_labels_are_picked_up(con, tmp_path):
+def test_new_days_and_late_labels_are_picked_up(same_table, con, tmp_path):
     """A log that grows by a week and whose labels arrive late, as in production."""
     full = generate(tmp_path / "full", rows_per_day=40, weeks=2)
     logs = pq.read_table(full["logs"]).drop_columns(["month"]) if "month" in pq.read_table(
@@ -92,7 +72,7 @@ def test_new_days_and_late_labels_are_picked_up(con, tmp_path):
                run_query(con, "rollup", {"partials": str(tmp_path / "store")}))
 
 
-def test_an_interrupted_update_leaves_the_previous_store(con, demo, tmp_path, monkeypatch):
+def test_an_interrupted_update_leaves_the_previous_store(same_table, con, demo, tmp_path, monkeypatch):
     store = tmp_path / "store"
     partials.update(con, demo, store)
     before = run_query(con, "rollup", {"partials": str(store)})
