@@ -17,13 +17,9 @@ import pyarrow as pa
 
 @dataclass
 class ScoreMatrix:
-    values: np.ndarray   # (n, K) float64
+    values: np.ndarray   # (n, K) float64 (or the stored float type, see score_matrix)
     present: np.ndarray  # (n,) bool: not NULL, not empty
     lengths: np.ndarray  # (n,) int64: classes in the row (0 when not present)
-
-    @property
-    def uniform(self) -> bool:
-        return bool(np.all(self.lengths[self.present] == self.values.shape[1]))
 
 
 def single_array(arr) -> pa.Array:
