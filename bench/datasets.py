@@ -19,29 +19,37 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-START_US = 1748822400 * 10**6          # 2025-06-02 00:00 UTC, a Monday
-SPAN_US = 26 * 7 * 86400 * 10**6       # 26 weeks
+START_US = 1748822400 * 10**6  # 2025-06-02 00:00 UTC, a Monday
+SPAN_US = 26 * 7 * 86400 * 10**6  # 26 weeks
 VERSIONS = np.array(["v1", "v2"])
 SEGMENTS = np.array(["web", "ios", "android", "partner", "batch"])
-CHUNK_VALUES = 1 << 24                  # logits generated per chunk (64 MB of float32)
-ROW_GROUP_BYTES = 64 << 20              # about 64 MB of logits per Parquet row group
-SCHEMA = pa.schema([("ts", pa.timestamp("us")), ("model_version", pa.string()),
-                    ("segment", pa.string()), ("logits", pa.list_(pa.float32())),
-                    ("label", pa.int32())])
+CHUNK_VALUES = 1 << 24  # logits generated per chunk (64 MB of float32)
+ROW_GROUP_BYTES = 64 << 20  # about 64 MB of logits per Parquet row group
+SCHEMA = pa.schema(
+    [
+        ("ts", pa.timestamp("us")),
+        ("model_version", pa.string()),
+        ("segment", pa.string()),
+        ("logits", pa.list_(pa.float32())),
+        ("label", pa.int32()),
+    ]
+)
 
 
 @dataclass(frozen=True)
 class Dataset:
-    name: str          # short id used in tables and file names
+    name: str  # short id used in tables and file names
     rows: int
     classes: int
-    parts: int = 1     # > 1: a folder of part files
+    parts: int = 1  # > 1: a folder of part files
     big: bool = False  # the memory-limited case: DuckDB routes run under memory_limit
     seed: int = 20251201
 
     @property
     def label(self) -> str:
-        return f"{human(self.rows)} x {self.classes}" + (f" ({self.parts} files)" if self.parts > 1 else "")
+        return f"{human(self.rows)} x {self.classes}" + (
+            f" ({self.parts} files)" if self.parts > 1 else ""
+        )
 
     def path(self, data_dir: Path) -> Path:
         stem = f"logs_{human(self.rows)}_k{self.classes}_s{self.seed}"
@@ -58,10 +66,16 @@ class Dataset:
 
 
 SIZES = {
-    "small": (Dataset("k10", 1_000_000, 10), Dataset("k1000", 100_000, 1000),
-              Dataset("big", 10_000_000, 10, parts=4, big=True)),
-    "full": (Dataset("k10", 10_000_000, 10), Dataset("k1000", 1_000_000, 1000),
-             Dataset("big", 100_000_000, 10, parts=10, big=True)),
+    "small": (
+        Dataset("k10", 1_000_000, 10),
+        Dataset("k1000", 100_000, 1000),
+        Dataset("big", 10_000_000, 10, parts=4, big=True),
+    ),
+    "full": (
+        Dataset("k10", 10_000_000, 10),
+        Dataset("k1000", 1_000_000, 1000),
+        Dataset("big", 100_000_000, 10, parts=10, big=True),
+    ),
 }
 
 
@@ -81,17 +95,26 @@ def chunk(ds: Dataset, first: int, n: int) -> pa.RecordBatch:
     ts = START_US + rows * step + rng.integers(0, step, n)
     version = rng.integers(0, 2, n)
     segment = rng.choice(5, n, p=[0.4, 0.25, 0.2, 0.1, 0.05])
-    prior = 1.0 / np.sqrt(np.arange(1, k + 1))           # a few frequent classes, a long tail
+    prior = 1.0 / np.sqrt(np.arange(1, k + 1))  # a few frequent classes, a long tail
     truth = rng.choice(k, n, p=prior / prior.sum())
     z = rng.standard_normal((n, k), dtype=np.float32)
     z *= np.float32(1.5)
     bump = rng.gamma(2.0, 1.0 + 0.4 * version - 0.3 * (rows / ds.rows)) + 0.5 * segment / 4
     z[np.arange(n), truth] += bump.astype(np.float32)
     label = pa.array(truth.astype(np.int32), mask=rng.random(n) < 0.10)
-    logits = pa.ListArray.from_arrays(pa.array(np.arange(n + 1, dtype=np.int32) * k),
-                                      pa.array(z.ravel()))
-    return pa.record_batch([pa.array(ts, pa.timestamp("us")), pa.array(VERSIONS[version]),
-                            pa.array(SEGMENTS[segment]), logits, label], schema=SCHEMA)
+    logits = pa.ListArray.from_arrays(
+        pa.array(np.arange(n + 1, dtype=np.int32) * k), pa.array(z.ravel())
+    )
+    return pa.record_batch(
+        [
+            pa.array(ts, pa.timestamp("us")),
+            pa.array(VERSIONS[version]),
+            pa.array(SEGMENTS[segment]),
+            logits,
+            label,
+        ],
+        schema=SCHEMA,
+    )
 
 
 def write_part(ds: Dataset, path: Path, first: int, n: int) -> None:

@@ -16,14 +16,23 @@ from dataclasses import dataclass
 import numpy as np
 
 KEYS = ("period", "model_version", "segment")
-METRICS = ("rows", "labelled_rows", "cross_entropy", "cross_entropy_se", "accuracy", "brier",
-           "ece", "mean_confidence", "mean_entropy")
+METRICS = (
+    "rows",
+    "labelled_rows",
+    "cross_entropy",
+    "cross_entropy_se",
+    "accuracy",
+    "brier",
+    "ece",
+    "mean_confidence",
+    "mean_entropy",
+)
 BINS = 15
 
 
 @dataclass(frozen=True)
 class Context:
-    scan: str                 # read_parquet path or glob
+    scan: str  # read_parquet path or glob
     classes: int
     memory_limit: str | None  # DuckDB memory_limit for the big log, else None
     temp_dir: str
@@ -31,14 +40,17 @@ class Context:
 
 # --- DuckDB routes --------------------------------------------------------------------
 
+
 def connect(ctx: Context, register: bool):
     import duckdb
+
     config = {"threads": "2", "temp_directory": ctx.temp_dir}
     if ctx.memory_limit:
         config["memory_limit"] = ctx.memory_limit
     con = duckdb.connect(config=config)
     if register:
         import dbmetrics
+
         dbmetrics.register(con)
     return con
 
@@ -81,7 +93,8 @@ FROM by_bin GROUP BY ALL ORDER BY ALL
 # §2 b1), e = exp(d) materialised once; then s = sum e, sum e*d and sum e*e come from
 # list_sum / list_dot_product (built-ins, no lambda). loss = log s - d_y, conf = 1/s,
 # entropy = log s - (sum e d)/s, Brier = (sum e e)/s^2 - 2 e_y/s + 1.
-SQL_LAMBDA = """
+SQL_LAMBDA = (
+    """
 WITH shifted AS (
     SELECT date_trunc('week', ts)::DATE AS period, model_version, segment, label,
            label IS NOT NULL AS labelled,
@@ -100,10 +113,13 @@ per_row AS (
            ln(s) - sed / s AS entropy,
            least(greatest(ceil((1 / s) * 15)::INTEGER - 1, 0), 14) AS bin
     FROM sums),
-""" + FINISH_SQL
+"""
+    + FINISH_SQL
+)
 
 # The same finish over dbmetrics' per-row statistics UDF.
-UDF_SQL = """
+UDF_SQL = (
+    """
 WITH per_row AS (
     SELECT period, model_version, segment,
            st.label_issue = 0 AS labelled, st.loss AS loss, st.correct AS correct,
@@ -111,7 +127,9 @@ WITH per_row AS (
     FROM (SELECT date_trunc('week', ts)::DATE AS period, model_version, segment,
                  logit_row_stats(logits, label, 15) AS st
           FROM read_parquet($1))),
-""" + FINISH_SQL
+"""
+    + FINISH_SQL
+)
 
 
 def floor(ctx):
@@ -122,11 +140,20 @@ def floor(ctx):
 
 def rollup_template(ctx):
     """dbmetrics' `rollup` template through the Python API."""
-    from dbmetrics.templates import run_query
+    from dbmetrics.queries import run_query
+
     con = connect(ctx, True)
-    params = {"logs": ctx.scan, "grain": "week", "segment_cols": "segment", "bins": str(BINS),
-              "time_col": "ts", "scores_col": "logits", "label_col": "label",
-              "version_col": "model_version", "scores_kind": "logits"}
+    params = {
+        "logs": ctx.scan,
+        "grain": "week",
+        "segment_cols": "segment",
+        "bins": str(BINS),
+        "time_col": "ts",
+        "scores_col": "logits",
+        "label_col": "label",
+        "version_col": "model_version",
+        "scores_kind": "logits",
+    }
     return lambda: rows_of(run_query(con, "rollup", params))
 
 
@@ -151,13 +178,16 @@ def ce_udf(ctx):
 def ce_sql(ctx):
     """The mean cross-entropy in SQL (notes §2 b1, with float64 differences)."""
     con = connect(ctx, False)
-    sql = ("SELECT avg(ln(list_sum(list_transform(logits, lambda v: exp(v::DOUBLE - m)))) "
-           "+ m - logits[label + 1]) FROM (SELECT logits, label, list_max(logits)::DOUBLE AS m "
-           "FROM read_parquet(?))")
+    sql = (
+        "SELECT avg(ln(list_sum(list_transform(logits, lambda v: exp(v::DOUBLE - m)))) "
+        "+ m - logits[label + 1]) FROM (SELECT logits, label, list_max(logits)::DOUBLE AS m "
+        "FROM read_parquet(?))"
+    )
     return lambda: scalar(con, sql, ctx)
 
 
 # --- In-memory routes ------------------------------------------------------------------
+
 
 def week_start_days(ts_us: np.ndarray) -> np.ndarray:
     """Days since 1970-01-01 of the Monday starting each timestamp's week (1970-01-01 = Thu)."""
@@ -171,8 +201,18 @@ def inner_edges():
 
 class Sums:
     """Per (group, bin) sums, accumulated block by block with np.bincount."""
-    NAMES = ("n", "nl", "s_loss", "s_loss2", "s_correct", "s_brier", "s_conf_l", "s_conf",
-             "s_entropy")
+
+    NAMES = (
+        "n",
+        "nl",
+        "s_loss",
+        "s_loss2",
+        "s_correct",
+        "s_brier",
+        "s_conf_l",
+        "s_conf",
+        "s_entropy",
+    )
 
     def __init__(self, groups: int):
         self.size = groups * BINS
@@ -181,10 +221,17 @@ class Sums:
     def add(self, cell, labelled, loss, correct, brier, conf, entropy):
         def put(name, w=None):
             self.acc[name] += np.bincount(cell, w, minlength=self.size)
+
         lab = labelled.astype(np.float64)
-        put("n"); put("nl", lab); put("s_loss", loss * lab); put("s_loss2", loss * loss * lab)
-        put("s_correct", correct * lab); put("s_brier", brier * lab); put("s_conf_l", conf * lab)
-        put("s_conf", conf); put("s_entropy", entropy)
+        put("n")
+        put("nl", lab)
+        put("s_loss", loss * lab)
+        put("s_loss2", loss * loss * lab)
+        put("s_correct", correct * lab)
+        put("s_brier", brier * lab)
+        put("s_conf_l", conf * lab)
+        put("s_conf", conf)
+        put("s_entropy", entropy)
 
     def finish(self, group_keys) -> list:
         """Row dicts for groups with rows; group_keys(g) -> (period, version, segment)."""
@@ -195,14 +242,24 @@ class Sums:
         for i in np.flatnonzero(g["n"]):
             n, nl = g["n"][i], g["nl"][i]
             period, version, segment = group_keys(i)
-            out.append({"period": period, "model_version": version, "segment": segment,
-                        "rows": int(n), "labelled_rows": int(nl),
-                        "cross_entropy": g["s_loss"][i] / nl,
-                        "cross_entropy_se": np.sqrt((g["s_loss2"][i] - g["s_loss"][i] ** 2 / nl)
-                                                    / (nl - 1) / nl),
-                        "accuracy": g["s_correct"][i] / nl, "brier": g["s_brier"][i] / nl,
-                        "ece": gap[i] / nl, "mean_confidence": g["s_conf"][i] / n,
-                        "mean_entropy": g["s_entropy"][i] / n})
+            out.append(
+                {
+                    "period": period,
+                    "model_version": version,
+                    "segment": segment,
+                    "rows": int(n),
+                    "labelled_rows": int(nl),
+                    "cross_entropy": g["s_loss"][i] / nl,
+                    "cross_entropy_se": np.sqrt(
+                        (g["s_loss2"][i] - g["s_loss"][i] ** 2 / nl) / (nl - 1) / nl
+                    ),
+                    "accuracy": g["s_correct"][i] / nl,
+                    "brier": g["s_brier"][i] / nl,
+                    "ece": gap[i] / nl,
+                    "mean_confidence": g["s_conf"][i] / n,
+                    "mean_entropy": g["s_entropy"][i] / n,
+                }
+            )
         return sorted(out, key=lambda r: tuple(r[k] for k in KEYS))
 
 
@@ -217,7 +274,7 @@ def block_stats(z32: np.ndarray, y: np.ndarray, labelled: np.ndarray):
     m = np.maximum.reduce(d, axis=0)
     if k <= 32:
         pred = np.zeros(n, np.int64)
-        for j in range(k - 1, -1, -1):     # first maximum wins: lowest index written last
+        for j in range(k - 1, -1, -1):  # first maximum wins: lowest index written last
             pred[d[j] == m] = j
     else:
         pred = z32.argmax(axis=1)
@@ -225,7 +282,7 @@ def block_stats(z32: np.ndarray, y: np.ndarray, labelled: np.ndarray):
     e = np.exp(d)
     s = np.add.reduce(e, axis=0)
     log_s = np.log(s)
-    e /= s                                  # e is now p
+    e /= s  # e is now p
     cols = np.arange(n)
     ys = np.where(labelled, y, 0)
     loss = log_s - d[ys, cols]
@@ -233,13 +290,20 @@ def block_stats(z32: np.ndarray, y: np.ndarray, labelled: np.ndarray):
     e[ys, cols] -= 1.0
     brier = np.einsum("ij,ij->j", e, e)
     conf = 1.0 / s
-    return loss, (pred == ys).astype(np.float64), brier, conf, entropy, \
-        np.searchsorted(inner_edges(), conf, side="left")
+    return (
+        loss,
+        (pred == ys).astype(np.float64),
+        brier,
+        conf,
+        entropy,
+        np.searchsorted(inner_edges(), conf, side="left"),
+    )
 
 
 def codes(column):
     """Small integer codes and their values for a (chunked) string column."""
     import pyarrow.compute as pc
+
     values = pc.unique(column).sort()
     return pc.index_in(column, value_set=values).to_numpy(), values.to_pylist()
 
@@ -250,8 +314,10 @@ def rollup_arrow_numpy(ctx):
     import pyarrow.parquet as pq
 
     def run():
-        t = pq.read_table(ctx.scan if "*" not in ctx.scan else ctx.scan.rsplit("/", 1)[0],
-                          columns=["ts", "model_version", "segment", "logits", "label"])
+        t = pq.read_table(
+            ctx.scan if "*" not in ctx.scan else ctx.scan.rsplit("/", 1)[0],
+            columns=["ts", "model_version", "segment", "logits", "label"],
+        )
         week = week_start_days(t["ts"].cast("int64").to_numpy())
         w0 = int(week.min())
         wcode = (week - w0) // 7
@@ -269,13 +335,12 @@ def rollup_arrow_numpy(ctx):
             n = len(chunk)
             flat = chunk.values.to_numpy()
             off = chunk.offsets[0].as_py()
-            z = flat[off:off + n * ctx.classes].reshape(n, ctx.classes)
+            z = flat[off : off + n * ctx.classes].reshape(n, ctx.classes)
             for a in range(0, n, block):
                 b = min(n, a + block)
                 rows = slice(start + a, start + b)
                 loss, correct, brier, conf, ent, bins = block_stats(z[a:b], y[rows], labelled[rows])
-                sums.add(group[rows] * BINS + bins, labelled[rows], loss, correct, brier, conf,
-                         ent)
+                sums.add(group[rows] * BINS + bins, labelled[rows], loss, correct, brier, conf, ent)
             start += n
 
         def keys(g):
@@ -283,7 +348,9 @@ def rollup_arrow_numpy(ctx):
             v, s = divmod(rest, ns)
             day = np.datetime64(w0 + 7 * g_w, "D")
             return str(day), versions[v], segments[s]
+
         return sums.finish(keys)
+
     return run
 
 
@@ -300,18 +367,18 @@ def rollup_pandas(ctx):
         stats = {k: np.empty(len(df)) for k in ("loss", "correct", "brier", "conf", "entropy")}
         step = max(256, (1 << 20) // ctx.classes)
         for a in range(0, len(df), step):
-            zc = z[a:a + step].astype(np.float64)
-            yc = y[a:a + step]
+            zc = z[a : a + step].astype(np.float64)
+            yc = y[a : a + step]
             rows = np.arange(len(zc))
             logp = special.log_softmax(zc, axis=1)
             p = np.exp(logp)
-            stats["loss"][a:a + step] = -logp[rows, yc]
-            stats["correct"][a:a + step] = zc.argmax(axis=1) == yc
+            stats["loss"][a : a + step] = -logp[rows, yc]
+            stats["correct"][a : a + step] = zc.argmax(axis=1) == yc
             onehot = np.zeros_like(p)
             onehot[rows, yc] = 1.0
-            stats["brier"][a:a + step] = ((p - onehot) ** 2).sum(axis=1)
-            stats["conf"][a:a + step] = p.max(axis=1)
-            stats["entropy"][a:a + step] = special.entr(p).sum(axis=1)
+            stats["brier"][a : a + step] = ((p - onehot) ** 2).sum(axis=1)
+            stats["conf"][a : a + step] = p.max(axis=1)
+            stats["entropy"][a : a + step] = special.entr(p).sum(axis=1)
         frame = pd.DataFrame(stats)
         for k in ("loss", "correct", "brier"):
             frame.loc[~labelled, k] = np.nan
@@ -322,31 +389,51 @@ def rollup_pandas(ctx):
         frame["conf_l"] = frame["conf"].where(labelled)
         keys = list(KEYS)
         out = frame.groupby(keys).agg(
-            rows=("conf", "size"), labelled_rows=("loss", "count"),
-            cross_entropy=("loss", "mean"), cross_entropy_se=("loss", "sem"),
-            accuracy=("correct", "mean"), brier=("brier", "mean"),
-            mean_confidence=("conf", "mean"), mean_entropy=("entropy", "mean"))
+            rows=("conf", "size"),
+            labelled_rows=("loss", "count"),
+            cross_entropy=("loss", "mean"),
+            cross_entropy_se=("loss", "sem"),
+            accuracy=("correct", "mean"),
+            brier=("brier", "mean"),
+            mean_confidence=("conf", "mean"),
+            mean_entropy=("entropy", "mean"),
+        )
         per_bin = frame.groupby(keys + ["bin"])[["correct", "conf_l"]].sum()
         gap = (per_bin["correct"] - per_bin["conf_l"]).abs().groupby(level=keys).sum()
         out["ece"] = gap / out["labelled_rows"]
         out = out.reset_index()
-        return [{k: (v.item() if hasattr(v, "item") else v) for k, v in r.items()}
-                for r in out[list(KEYS + METRICS)].to_dict("records")]
+        return [
+            {k: (v.item() if hasattr(v, "item") else v) for k, v in r.items()}
+            for r in out[list(KEYS + METRICS)].to_dict("records")
+        ]
+
     return run
 
 
 # --- Incremental partials ------------------------------------------------------------
 
+
 def partials_params(ctx) -> dict:
-    return {"logs": ctx.scan, "segment_cols": "segment", "bins": str(BINS), "time_col": "ts",
-            "scores_col": "logits", "label_col": "label", "version_col": "model_version",
-            "scores_kind": "logits"}
+    return {
+        "logs": ctx.scan,
+        "segment_cols": "segment",
+        "bins": str(BINS),
+        "time_col": "ts",
+        "scores_col": "logits",
+        "label_col": "label",
+        "version_col": "model_version",
+        "scores_kind": "logits",
+    }
 
 
 def rollup_from_store(con, store) -> list:
-    from dbmetrics.templates import run_query
-    return rows_of(run_query(con, "rollup", {"partials": str(store), "segment_cols": "segment",
-                                             "grain": "week"}))
+    from dbmetrics.queries import run_query
+
+    return rows_of(
+        run_query(
+            con, "rollup", {"partials": str(store), "segment_cols": "segment", "grain": "week"}
+        )
+    )
 
 
 def partials_build(ctx):
@@ -355,6 +442,7 @@ def partials_build(ctx):
     from pathlib import Path
 
     from dbmetrics import partials
+
     con = connect(ctx, True)
     store = Path(ctx.temp_dir) / "bench_store_build"
 
@@ -362,6 +450,7 @@ def partials_build(ctx):
         shutil.rmtree(store, ignore_errors=True)
         partials.update(con, partials_params(ctx), store)
         return rollup_from_store(con, store)
+
     return run
 
 
@@ -371,6 +460,7 @@ def partials_one_day(ctx):
     from pathlib import Path
 
     from dbmetrics import partials
+
     con = connect(ctx, True)
     store = Path(ctx.temp_dir) / "bench_store_update"
     partials.update(con, partials_params(ctx), store, full=True)
@@ -378,6 +468,7 @@ def partials_one_day(ctx):
     def run():
         partials.update(con, partials_params(ctx), store, relabel_days=1)
         return rollup_from_store(con, store)
+
     return run
 
 
@@ -385,7 +476,7 @@ def partials_one_day(ctx):
 # (setup such as connecting and registering happens outside the timed runs).
 METHODS = {
     "floor": (floor, "floor", "SELECT sum(list_sum(logits)): DuckDB scanning the scores"),
-    "rollup": (rollup_template, "rollup", "dbmetrics.templates.run_query(con, 'rollup', ...)"),
+    "rollup": (rollup_template, "rollup", "dbmetrics.queries.execute_query(con, 'rollup', ...)"),
     "rollup_udf_sql": (rollup_udf_sql, "rollup", "hand SQL over logit_row_stats (no template)"),
     "sql_lambda": (rollup_sql_lambda, "rollup", "hand DuckDB SQL, list lambdas, list_max hoisted"),
     "arrow_numpy": (rollup_arrow_numpy, "rollup", "pyarrow read_table -> numpy blocks (float64)"),

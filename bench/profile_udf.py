@@ -21,17 +21,17 @@ REPO = Path(__file__).resolve().parent.parent
 if str(REPO) not in sys.path:
     sys.path.insert(0, str(REPO))
 
-import numpy as np                                                        # noqa: E402
-import pyarrow as pa                                                      # noqa: E402
+import numpy as np  # noqa: E402
+import pyarrow as pa  # noqa: E402
+from duckdb.sqltypes import BIGINT, DOUBLE  # noqa: E402
 
-import dbmetrics                                                          # noqa: E402
-from bench.datasets import SIZES, ensure                                  # noqa: E402
-from dbmetrics import udf_adapters as ua                                  # noqa: E402
-from dbmetrics.arrow_lists import integer_column, score_matrix            # noqa: E402
-from dbmetrics.functions import ROW_STATS, SCORES                         # noqa: E402
-from dbmetrics.kernels import row_stats                                   # noqa: E402
-from dbmetrics.templates import render_query                              # noqa: E402
-from duckdb.sqltypes import BIGINT, DOUBLE                                # noqa: E402
+import dbmetrics  # noqa: E402
+from bench.datasets import SIZES, ensure  # noqa: E402
+from dbmetrics import udf_adapters as ua  # noqa: E402
+from dbmetrics.arrow_lists import integer_column, score_matrix  # noqa: E402
+from dbmetrics.functions import ROW_STATS, SCORES  # noqa: E402
+from dbmetrics.kernels import row_stats  # noqa: E402
+from dbmetrics.queries import render_query  # noqa: E402
 
 
 class Clock:
@@ -52,26 +52,41 @@ class Clock:
 def timed_row_stats(clock: Clock):
     def udf(scores, labels, bins):
         t = [time.perf_counter()]
+
         def lap():
             t.append(time.perf_counter())
-        sm = score_matrix(scores, ua.LOGITS_PAD); lap()
-        y, y_present = integer_column(labels); lap()
-        b, _ = integer_column(bins); count = int(b[0]); lap()
+
+        sm = score_matrix(scores, ua.LOGITS_PAD)
+        lap()
+        y, y_present = integer_column(labels)
+        lap()
+        b, _ = integer_column(bins)
+        count = int(b[0])
+        lap()
         st = row_stats.logit_row_stats(sm.values, sm.present, sm.lengths, y, y_present, count)
         lap()
-        out = ua.row_stats_struct(st); lap()
-        clock.add(dict(zip(("arrow->float64 matrix", "labels", "bins", "kernel",
-                            "numpy->Arrow struct"), np.diff(t))))
+        out = ua.row_stats_struct(st)
+        lap()
+        clock.add(
+            dict(
+                zip(
+                    ("arrow->float64 matrix", "labels", "bins", "kernel", "numpy->Arrow struct"),
+                    np.diff(t),
+                )
+            )
+        )
         return out
+
     return udf
 
 
 def timed(clock: Clock, body):
-    def udf(scores, labels):    # DuckDB reads the arity from the signature
+    def udf(scores, labels):  # DuckDB reads the arity from the signature
         t0 = time.perf_counter()
         out = body(scores, labels)
         clock.add({"body": time.perf_counter() - t0})
         return out
+
     return udf
 
 
@@ -102,34 +117,53 @@ def main(argv=None):
     scan = ds.scan(args.data_dir)
     con = dbmetrics.connect(threads=args.threads)
     calls = -(-ds.rows // 2048)
-    print(f"{ds.label}, threads={args.threads}, {calls} UDF calls of <= 2048 rows; "
-          f"min of {args.repeat} after a warm-up; ms per call = total / {calls}; 'body' rows "
-          "are seconds inside the Python UDF summed over threads (the GIL serialises them)")
+    print(
+        f"{ds.label}, threads={args.threads}, {calls} UDF calls of <= 2048 rows; "
+        f"min of {args.repeat} after a warm-up; ms per call = total / {calls}; 'body' rows "
+        "are seconds inside the Python UDF summed over threads (the GIL serialises them)"
+    )
 
     def row(name, seconds, note=""):
         print(f"  {name:44s} {seconds:7.3f} s  {1e3 * seconds / calls:6.3f} ms/call  {note}")
 
     floor = best(con, "SELECT sum(list_sum(logits)) FROM read_parquet(?)", [scan], args.repeat)
     row("floor sum(list_sum(logits))", floor)
-    con.create_function("noop_udf", noop, [SCORES, BIGINT], DOUBLE, type="arrow",
-                        null_handling="special")
-    row("no-op Arrow UDF(DOUBLE[], BIGINT) -> DOUBLE",
+    con.create_function(
+        "noop_udf", noop, [SCORES, BIGINT], DOUBLE, type="arrow", null_handling="special"
+    )
+    row(
+        "no-op Arrow UDF(DOUBLE[], BIGINT) -> DOUBLE",
         best(con, "SELECT avg(noop_udf(logits, label)) FROM read_parquet(?)", [scan], args.repeat),
-        "DuckDB's cost of calling Python")
+        "DuckDB's cost of calling Python",
+    )
 
     ce = next(f for f in dbmetrics.FUNCTIONS if f.name == "cross_entropy")
     clock = Clock()
-    con.create_function("ce_timed", timed(clock, ce.body), list(ce.params), ce.returns,
-                        type="arrow", null_handling="special")
+    con.create_function(
+        "ce_timed",
+        timed(clock, ce.body),
+        list(ce.params),
+        ce.returns,
+        type="arrow",
+        null_handling="special",
+    )
     wall = best(con, "SELECT avg(ce_timed(logits, label)) FROM read_parquet(?)", [scan], 1)
     row("avg(cross_entropy) wall", wall)
     row("  UDF body", clock.total["body"])
 
     clock = Clock()
-    con.create_function("rs_timed", timed_row_stats(clock), [SCORES, BIGINT, BIGINT], ROW_STATS,
-                        type="arrow", null_handling="special")
-    sql = ("SELECT count(*), sum(s.loss), sum(s.brier), sum(s.entropy), sum(s.bin) FROM "
-           "(SELECT rs_timed(logits, label, 15) AS s FROM read_parquet(?))")
+    con.create_function(
+        "rs_timed",
+        timed_row_stats(clock),
+        [SCORES, BIGINT, BIGINT],
+        ROW_STATS,
+        type="arrow",
+        null_handling="special",
+    )
+    sql = (
+        "SELECT count(*), sum(s.loss), sum(s.brier), sum(s.entropy), sum(s.bin) FROM "
+        "(SELECT rs_timed(logits, label, 15) AS s FROM read_parquet(?))"
+    )
     con.execute(sql, [scan]).fetchall()
     clock.total.clear()
     wall = best(con, sql, [scan], 1)
@@ -143,18 +177,24 @@ def main(argv=None):
 
     # Aggregation alone: the template's per-row statistics stored in a table, then its SQL
     # with the innermost scan and the UDF call replaced by that table's columns.
-    con.execute("CREATE OR REPLACE TEMP TABLE pre AS SELECT CAST(ts AS DATE) AS day, model_version,"
-                " segment, NULL::DOUBLE[] AS scores, CAST(label AS BIGINT) AS label,"
-                " logit_row_stats(logits, label, 15) AS stored FROM read_parquet(?)", [scan])
-    agg, swaps = re.subn(r"SELECT CAST\(logs\..*?AS logs", "SELECT * FROM pre", rollup_sql,
-                         flags=re.S)
+    con.execute(
+        "CREATE OR REPLACE TEMP TABLE pre AS SELECT CAST(ts AS DATE) AS day, model_version,"
+        " segment, NULL::DOUBLE[] AS scores, CAST(label AS BIGINT) AS label,"
+        " logit_row_stats(logits, label, 15) AS stored FROM read_parquet(?)",
+        [scan],
+    )
+    agg, swaps = re.subn(
+        r"SELECT CAST\(logs\..*?AS logs", "SELECT * FROM pre", rollup_sql, flags=re.S
+    )
     agg = agg.replace("logit_row_stats(scores, label, $bins) AS stats", "stored AS stats")
     if swaps != 1 or "stored AS stats" not in agg:
         sys.exit("the rollup template changed shape; update bench/profile_udf.py")
     bound_agg = {k: v for k, v in bound.items() if k not in ("logs", "bins")}
     row("template aggregation over stored stats (fsum)", best(con, agg, bound_agg, args.repeat))
-    row("  same with sum instead of fsum",
-        best(con, agg.replace("fsum(", "sum("), bound_agg, args.repeat))
+    row(
+        "  same with sum instead of fsum",
+        best(con, agg.replace("fsum(", "sum("), bound_agg, args.repeat),
+    )
 
 
 if __name__ == "__main__":

@@ -8,6 +8,7 @@ process's peak RSS (VmHWM) as a cross-check of the parent's wait4 figure.
 import json
 import sys
 import time
+from pathlib import Path
 
 
 def peak_rss_bytes() -> int:
@@ -20,7 +21,8 @@ def peak_rss_bytes() -> int:
 
 def main(spec_path: str, out_path: str) -> None:
     from bench.methods import METHODS, Context
-    spec = json.loads(open(spec_path).read())
+
+    spec = json.loads(Path(spec_path).read_text())
     ctx = Context(spec["scan"], spec["classes"], spec["memory_limit"], spec["temp_dir"])
     t0 = time.perf_counter()
     run = METHODS[spec["method"]][0](ctx)
@@ -33,8 +35,9 @@ def main(spec_path: str, out_path: str) -> None:
         result = run()
         times.append(time.perf_counter() - t0)
     with open(out_path, "w") as f:
-        json.dump({"times": times, "setup": setup, "result": result,
-                   "self_peak_rss": peak_rss_bytes()}, f)
+        json.dump(
+            {"times": times, "setup": setup, "result": result, "self_peak_rss": peak_rss_bytes()}, f
+        )
 
 
 if __name__ == "__main__":

@@ -6,7 +6,7 @@ from .errors import DbmetricsError
 from .functions import FUNCTIONS, register
 
 __version__ = "0.1.0"
-__all__ = ["connect", "register", "FUNCTIONS", "DbmetricsError", "__version__"]
+__all__ = ["FUNCTIONS", "DbmetricsError", "__version__", "connect", "register"]
 
 
 def connect(database: str = ":memory:", **config) -> duckdb.DuckDBPyConnection:

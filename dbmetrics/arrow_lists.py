@@ -17,7 +17,7 @@ import pyarrow as pa
 
 @dataclass
 class ScoreMatrix:
-    values: np.ndarray   # (n, K) float64 (or the stored float type, see score_matrix)
+    values: np.ndarray  # (n, K) float64 (or the stored float type, see score_matrix)
     present: np.ndarray  # (n,) bool: not NULL, not empty
     lengths: np.ndarray  # (n,) int64: classes in the row (0 when not present)
 
@@ -56,8 +56,11 @@ def score_matrix(arr, pad: float, dtype=np.float64) -> ScoreMatrix:
     """Padded matrix view of a list column, float64 (or, with dtype=None, the stored float
     type when every row has the same K: a caller that converts anyway saves a copy)."""
     arr = single_array(arr)
-    if not (pa.types.is_list(arr.type) or pa.types.is_large_list(arr.type)
-            or pa.types.is_fixed_size_list(arr.type)):
+    if not (
+        pa.types.is_list(arr.type)
+        or pa.types.is_large_list(arr.type)
+        or pa.types.is_fixed_size_list(arr.type)
+    ):
         raise TypeError(f"expected a list of numbers, got {arr.type}")
     n = len(arr)
     offsets, child = offsets_and_child(arr)
@@ -105,8 +108,8 @@ def doubles(out: np.ndarray, null: np.ndarray | None = None) -> pa.Array:
     return pa.array(out, type=pa.float64(), mask=mask)
 
 
-def integers(out: np.ndarray, null: np.ndarray, type_=pa.int32()) -> pa.Array:
-    return pa.array(out, type=type_, mask=null)
+def integers(out: np.ndarray, null: np.ndarray, type_=None) -> pa.Array:
+    return pa.array(out, type=type_ or pa.int32(), mask=null)
 
 
 def booleans(out: np.ndarray, null: np.ndarray) -> pa.Array:
@@ -122,5 +125,6 @@ def list_of_doubles(mat: np.ndarray, lengths: np.ndarray, null: np.ndarray) -> p
     offsets = np.zeros(n + 1, np.int32)
     np.cumsum(keep, out=offsets[1:])
     values = mat[np.arange(k)[None, :] < keep[:, None]]
-    return pa.ListArray.from_arrays(pa.array(offsets), pa.array(values, type=pa.float64()),
-                                    mask=pa.array(null))
+    return pa.ListArray.from_arrays(
+        pa.array(offsets), pa.array(values, type=pa.float64()), mask=pa.array(null)
+    )

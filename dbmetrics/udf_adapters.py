@@ -9,13 +9,21 @@ value problems (NaN, not a distribution) give NULL.
 import numpy as np
 import pyarrow as pa
 
-from .arrow_lists import (booleans, doubles, float_column, integer_column, integers,
-                          list_of_doubles, score_matrix, single_array)
+from .arrow_lists import (
+    booleans,
+    doubles,
+    float_column,
+    integer_column,
+    integers,
+    list_of_doubles,
+    score_matrix,
+    single_array,
+)
 from .kernels.distributions import as_distribution
 from .kernels.losses import temperature_scaled_losses
 from .kernels.predictions import calibration_bin, predicted_class
-from .kernels.softmax import row_max
 from .kernels.row_stats import RowStats
+from .kernels.softmax import row_max
 
 LOGITS_PAD, PROBS_PAD = -np.inf, 0.0
 MAX_BINS = 1_000_000
@@ -28,8 +36,10 @@ def checked_labels(name: str, labels, sm) -> tuple[np.ndarray, np.ndarray]:
     bad = usable & ((y < 0) | (y >= sm.lengths))
     if bad.any():
         i = int(np.argmax(bad))
-        raise ValueError(f"{name}: label {y[i]} is outside [0, {sm.lengths[i]}) for a row with "
-                         f"{sm.lengths[i]} classes (labels are 0-based class indices)")
+        raise ValueError(
+            f"{name}: label {y[i]} is outside [0, {sm.lengths[i]}) for a row with "
+            f"{sm.lengths[i]} classes (labels are 0-based class indices)"
+        )
     return np.where(usable, y, 0), usable
 
 
@@ -38,8 +48,10 @@ def same_lengths(name: str, a, b, what: str) -> None:
     differ = both & (a.lengths != b.lengths)
     if differ.any():
         i = int(np.argmax(differ))
-        raise ValueError(f"{name}: the first list has {a.lengths[i]} classes but {what} has "
-                         f"{b.lengths[i]} in the same row; both lists must have one entry per class")
+        raise ValueError(
+            f"{name}: the first list has {a.lengths[i]} classes but {what} has "
+            f"{b.lengths[i]} in the same row; both lists must have one entry per class"
+        )
 
 
 def lists_to_lists(kernel, pad):
@@ -47,6 +59,7 @@ def lists_to_lists(kernel, pad):
         sm = score_matrix(scores, pad)
         out = kernel(sm.values)
         return list_of_doubles(out, sm.lengths, ~sm.present | np.isnan(out[:, 0]))
+
     return udf
 
 
@@ -54,6 +67,7 @@ def lists_to_doubles(kernel, pad):
     def udf(scores):
         sm = score_matrix(scores, pad)
         return doubles(kernel(sm.values), ~sm.present)
+
     return udf
 
 
@@ -66,6 +80,7 @@ def lists_to_class(kernel, pad):
     def udf(scores):
         sm = score_matrix(scores, pad)
         return integers(kernel(sm.values), ~sm.present | undefined_rows(sm.values))
+
     return udf
 
 
@@ -75,6 +90,7 @@ def correct_class(name, pad):
         y, usable = checked_labels(name, labels, sm)
         out = predicted_class(sm.values) == y
         return booleans(out, ~usable | undefined_rows(sm.values))
+
     return udf
 
 
@@ -83,6 +99,7 @@ def lists_and_label_to_doubles(name, kernel, pad):
         sm = score_matrix(scores, pad)
         y, usable = checked_labels(name, labels, sm)
         return doubles(kernel(sm.values, y), ~usable)
+
     return udf
 
 
@@ -91,8 +108,10 @@ def two_lists_to_doubles(name, kernel, pad, what):
         a, b = score_matrix(first, pad), score_matrix(second, 0.0)
         same_lengths(name, a, b, what)
         k = max(a.values.shape[1], b.values.shape[1])
-        return doubles(kernel(widen(a.values, k, pad), widen(b.values, k, 0.0)),
-                       ~(a.present & b.present))
+        return doubles(
+            kernel(widen(a.values, k, pad), widen(b.values, k, 0.0)), ~(a.present & b.present)
+        )
+
     return udf
 
 
@@ -133,9 +152,12 @@ def binary_and_label_to_doubles(name, to_matrix, kernel):
         y, y_present = integer_column(labels)
         bad = present & y_present & ((y < 0) | (y > 1))
         if bad.any():
-            raise ValueError(f"{name}: label {y[np.argmax(bad)]} is not 0 or 1 "
-                             "(binary labels mark the positive class with 1)")
+            raise ValueError(
+                f"{name}: label {y[np.argmax(bad)]} is not 0 or 1 "
+                "(binary labels mark the positive class with 1)"
+            )
         return doubles(kernel(mat, np.where(bad, 0, y)), ~(present & y_present))
+
     return udf
 
 
@@ -143,8 +165,10 @@ def confidence_to_bin(conf, bins):
     c, present = float_column(conf)
     b, b_present = integer_column(bins)
     if b_present.any() and ((b[b_present] < 1) | (b[b_present] > MAX_BINS)).any():
-        raise ValueError(f"calibration_bin: bins must be a whole number in 1..{MAX_BINS}, "
-                         f"got {b[b_present].min() if (b[b_present] < 1).any() else b[b_present].max()}")
+        raise ValueError(
+            f"calibration_bin: bins must be a whole number in 1..{MAX_BINS}, "
+            f"got {b[b_present].min() if (b[b_present] < 1).any() else b[b_present].max()}"
+        )
     out = np.full(len(c), -1, np.int32)
     for count in np.unique(b[b_present]):
         rows = b_present & (b == count)
@@ -176,22 +200,36 @@ def temperature_grid_udf(scores, labels, temperatures, kinds):
     return list_of_doubles(losses, np.full(len(z), len(t)), ~usable)
 
 
-ROW_STATS_TYPE = pa.struct([
-    ("score_issue", pa.int8()), ("label_issue", pa.int8()), ("classes", pa.int32()),
-    ("loss", pa.float64()), ("confidence", pa.float64()), ("predicted", pa.int32()),
-    ("correct", pa.bool_()), ("brier", pa.float64()), ("entropy", pa.float64()),
-    ("bin", pa.int32()),
-])
+ROW_STATS_TYPE = pa.struct(
+    [
+        ("score_issue", pa.int8()),
+        ("label_issue", pa.int8()),
+        ("classes", pa.int32()),
+        ("loss", pa.float64()),
+        ("confidence", pa.float64()),
+        ("predicted", pa.int32()),
+        ("correct", pa.bool_()),
+        ("brier", pa.float64()),
+        ("entropy", pa.float64()),
+        ("bin", pa.int32()),
+    ]
+)
 
 
 def row_stats_struct(st: RowStats) -> pa.StructArray:
     unscored = ~st.scored
     unlabelled = ~st.labelled
     fields = [
-        pa.array(st.score_issue, pa.int8()), pa.array(st.label_issue, pa.int8()),
-        integers(st.classes, st.classes == 0), doubles(st.loss), doubles(st.confidence),
-        integers(st.predicted, unscored), booleans(np.nan_to_num(st.correct), unlabelled),
-        doubles(st.brier), doubles(st.entropy), integers(st.bin, st.bin < 0),
+        pa.array(st.score_issue, pa.int8()),
+        pa.array(st.label_issue, pa.int8()),
+        integers(st.classes, st.classes == 0),
+        doubles(st.loss),
+        doubles(st.confidence),
+        integers(st.predicted, unscored),
+        booleans(np.nan_to_num(st.correct), unlabelled),
+        doubles(st.brier),
+        doubles(st.entropy),
+        integers(st.bin, st.bin < 0),
     ]
     return pa.StructArray.from_arrays(fields, fields=list(ROW_STATS_TYPE))
 
@@ -204,8 +242,11 @@ def row_stats_udf(kernel, pad):
         given = b[b_present]  # one constant per query: min and max, not a sort per call
         if not len(given) or given.min() != given.max() or not 1 <= given[0] <= MAX_BINS:
             seen = sorted({int(given.min()), int(given.max())}) if len(given) else "NULL"
-            raise ValueError(f"row statistics: bins must be one whole number in 1..{MAX_BINS} "
-                             f"for the whole query, got {seen}")
+            raise ValueError(
+                f"row statistics: bins must be one whole number in 1..{MAX_BINS} "
+                f"for the whole query, got {seen}"
+            )
         count = int(given[0])
         return row_stats_struct(kernel(sm.values, sm.present, sm.lengths, y, y_present, count))
+
     return udf

@@ -1,4 +1,5 @@
 """Shared pytest fixtures."""
+
 import numpy as np
 import pyarrow as pa
 import pytest
@@ -26,8 +27,11 @@ def assert_same_table(expected: pa.Table, got: pa.Table) -> None:
     """Equal column names, keys and values; floats to rel 1e-12 or abs 1e-12 (the same sums
     in another order; differences near 0 such as cross_entropy_z need the absolute bound)."""
     assert expected.column_names == got.column_names
-    keys = [(c, "ascending") for c in expected.column_names
-            if not pa.types.is_floating(expected.schema.field(c).type)]
+    keys = [
+        (c, "ascending")
+        for c in expected.column_names
+        if not pa.types.is_floating(expected.schema.field(c).type)
+    ]
     a, b = expected.sort_by(keys), got.sort_by(keys)
     assert a.num_rows == b.num_rows
     for name in expected.column_names:

@@ -4,9 +4,9 @@ identifiers and string literals (it is bound, or quoted as an identifier). Anyth
 (another exception, pasted text) is a bug.
 
 Run it:
-    /work/venv/bin/python tests/fuzz_render.py                 # atheris if installed
-    /work/venv/bin/python tests/fuzz_render.py -atheris_runs=100000
-    /work/venv/bin/python tests/fuzz_render.py --hypothesis 5000   # without atheris
+    python tests/fuzz_render.py                 # atheris if installed
+    python tests/fuzz_render.py -atheris_runs=100000
+    python tests/fuzz_render.py --hypothesis 5000   # without atheris
 tests/test_bad_inputs.py runs `fuzz_one` under hypothesis in the normal test run.
 """
 
@@ -22,9 +22,9 @@ import pyarrow.parquet as pq
 if __name__ == "__main__":  # run as a script from a checkout
     sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-import dbmetrics  # noqa: E402
-from dbmetrics.errors import DbmetricsError  # noqa: E402
-from dbmetrics.templates import list_queries, render_query  # noqa: E402
+import dbmetrics
+from dbmetrics.errors import DbmetricsError
+from dbmetrics.queries import list_queries, render_query
 
 QUOTED = re.compile(r'"(?:[^"]|"")*"|\'(?:[^\']|\'\')*\'|--[^\n]*')  # and comments
 _state = {}
@@ -35,14 +35,24 @@ def setup():
     if not _state:
         folder = Path(tempfile.mkdtemp(prefix="fuzz_render_"))
         logs = folder / "logs.parquet"
-        pq.write_table(pa.table({
-            "ts": pa.array([dt.datetime(2026, 1, 5)], pa.timestamp("us")),
-            "model_version": ["v1"], "region": ["a"], "id": ["p0"],
-            "logits": pa.array([[0.0, 1.0]], pa.list_(pa.float32())), "label": [1]}), logs)
+        pq.write_table(
+            pa.table(
+                {
+                    "ts": pa.array([dt.datetime(2026, 1, 5)], pa.timestamp("us")),
+                    "model_version": ["v1"],
+                    "region": ["a"],
+                    "id": ["p0"],
+                    "logits": pa.array([[0.0, 1.0]], pa.list_(pa.float32())),
+                    "label": [1],
+                }
+            ),
+            logs,
+        )
         (folder / "biz.csv").write_text("region,tier\na,gold\n")
         queries = [(q.name, p.name) for q in list_queries() for p in q.params]
-        _state.update(con=dbmetrics.connect(), logs=str(logs), biz=str(folder / "biz.csv"),
-                      targets=queries)
+        _state.update(
+            con=dbmetrics.connect(), logs=str(logs), biz=str(folder / "biz.csv"), targets=queries
+        )
     return _state
 
 

@@ -14,7 +14,6 @@ import pytest
 from click.testing import CliRunner
 
 import dbmetrics
-
 from dbmetrics.cli import output
 from dbmetrics.cli.main import cli
 
@@ -60,8 +59,14 @@ def test_sql_needs_exactly_one_source(invoke):
 def test_sql_runs_every_statement_and_keeps_tables_in_a_database(invoke, tmp_path):
     db = str(tmp_path / "keep.duckdb")
     assert invoke("--database", db, "sql", "CREATE TABLE weekly AS SELECT 7 AS n").exit_code == 0
-    result = invoke("--database", db, "sql", "INSERT INTO weekly VALUES (8); SELECT sum(n) AS total FROM weekly",
-                    "-f", "csv")
+    result = invoke(
+        "--database",
+        db,
+        "sql",
+        "INSERT INTO weekly VALUES (8); SELECT sum(n) AS total FROM weekly",
+        "-f",
+        "csv",
+    )
     assert result.stdout == '"total"\n15\n'
 
 
@@ -72,13 +77,29 @@ def test_database_comes_from_the_environment(invoke, tmp_path, monkeypatch):
 
 
 def test_memory_limit_and_threads_reach_duckdb(invoke):
-    result = invoke("--memory-limit", "500MB", "--threads", "1", "sql",
-                    "SELECT current_setting('threads') AS t, current_setting('memory_limit') AS m", "-f", "csv")
+    result = invoke(
+        "--memory-limit",
+        "500MB",
+        "--threads",
+        "1",
+        "sql",
+        "SELECT current_setting('threads') AS t, current_setting('memory_limit') AS m",
+        "-f",
+        "csv",
+    )
     assert result.stdout == '"t","m"\n1,"476.8 MiB"\n'
 
 
-@pytest.mark.parametrize("suffix, fmt", [(".csv", "csv"), (".json", "json"), (".parquet", "parquet"),
-                                         (".pq", "parquet"), (".txt", "table")])
+@pytest.mark.parametrize(
+    "suffix, fmt",
+    [
+        (".csv", "csv"),
+        (".json", "json"),
+        (".parquet", "parquet"),
+        (".pq", "parquet"),
+        (".txt", "table"),
+    ],
+)
 def test_format_is_inferred_from_the_output_suffix(suffix, fmt):
     assert output.choose_format(None, f"out/result{suffix}") == fmt
     assert output.choose_format("csv", f"result{suffix}") == "csv"
@@ -94,19 +115,38 @@ def test_every_format_writes_the_same_rows(invoke, tmp_path):
     query = "SELECT range AS i, range * 0.5 AS half, 'r' || range AS name FROM range(3)"
     for suffix in ("csv", "json", "parquet", "txt"):
         assert invoke("sql", query, "-o", f"out.{suffix}").exit_code == 0
-    assert (tmp_path / "out.csv").read_text() == '"i","half","name"\n0,0.0,"r0"\n1,0.5,"r1"\n2,1.0,"r2"\n'
+    assert (
+        tmp_path / "out.csv"
+    ).read_text() == '"i","half","name"\n0,0.0,"r0"\n1,0.5,"r1"\n2,1.0,"r2"\n'
     assert json.loads((tmp_path / "out.json").read_text())[2] == {"i": 2, "half": 1.0, "name": "r2"}
-    assert pq.read_table(tmp_path / "out.parquet").to_pylist()[1] == {"i": 1, "half": 0.5, "name": "r1"}
+    assert pq.read_table(tmp_path / "out.parquet").to_pylist()[1] == {
+        "i": 1,
+        "half": 0.5,
+        "name": "r1",
+    }
     assert (tmp_path / "out.txt").read_text().endswith("(3 rows)\n")
 
 
 def test_json_has_null_for_nan_and_inf_and_iso_dates(invoke):
-    result = invoke("sql", "SELECT 'nan'::DOUBLE AS a, '-inf'::DOUBLE AS b, [1.0, 'inf'::DOUBLE] AS c, "
-                           "DATE '2026-01-05' AS d, TIMESTAMP '2026-01-05 10:30:00' AS ts, "
-                           "12.50::DECIMAL(9,2) AS money, sum(range) AS big FROM range(4)", "-f", "json")
+    result = invoke(
+        "sql",
+        "SELECT 'nan'::DOUBLE AS a, '-inf'::DOUBLE AS b, [1.0, 'inf'::DOUBLE] AS c, "
+        "DATE '2026-01-05' AS d, TIMESTAMP '2026-01-05 10:30:00' AS ts, "
+        "12.50::DECIMAL(9,2) AS money, sum(range) AS big FROM range(4)",
+        "-f",
+        "json",
+    )
     assert json.loads(result.stdout) == [
-        {"a": None, "b": None, "c": [1.0, None], "d": "2026-01-05", "ts": "2026-01-05T10:30:00",
-         "money": 12.5, "big": 6}]
+        {
+            "a": None,
+            "b": None,
+            "c": [1.0, None],
+            "d": "2026-01-05",
+            "ts": "2026-01-05T10:30:00",
+            "money": 12.5,
+            "big": 6,
+        }
+    ]
 
 
 def test_parquet_to_the_terminal_is_refused(invoke):
@@ -138,7 +178,10 @@ def test_fail_on_flag_takes_another_column(invoke):
 def test_fail_on_flag_names_the_columns_when_the_column_is_missing(invoke, tmp_path):
     result = invoke("sql", "SELECT 1 AS id, true AS alert", "-o", "x.csv", "--fail-on-flag")
     assert result.exit_code == 1
-    assert result.stderr == "Error: --fail-on-flag: the result has no column 'flagged'; columns are: id, alert\n"
+    assert (
+        result.stderr
+        == "Error: --fail-on-flag: the result has no column 'flagged'; columns are: id, alert\n"
+    )
     assert not (tmp_path / "x.csv").exists()
 
 
@@ -151,7 +194,10 @@ def test_fail_on_flag_needs_a_boolean_column(invoke):
 def test_duckdb_errors_are_one_line_without_traceback(invoke):
     result = invoke("sql", "SELECT nope FROM range(3)")
     assert result.exit_code == 1
-    assert result.stderr == 'Error: Referenced column "nope" not found in FROM clause! Candidate bindings: "range"\n'
+    assert (
+        result.stderr
+        == 'Error: Referenced column "nope" not found in FROM clause! Candidate bindings: "range"\n'
+    )
 
 
 def test_udf_errors_lose_the_python_wrapping(invoke):
@@ -163,7 +209,10 @@ def test_udf_errors_lose_the_python_wrapping(invoke):
 
 def test_missing_files_are_one_line(invoke):
     result = invoke("sql", "--file", "missing.sql")
-    assert (result.exit_code, result.stderr) == (1, "Error: No such file or directory: 'missing.sql'\n")
+    assert (result.exit_code, result.stderr) == (
+        1,
+        "Error: No such file or directory: 'missing.sql'\n",
+    )
 
 
 def test_verbose_shows_the_traceback(invoke):
@@ -222,7 +271,9 @@ def _commands(group=cli, prefix=("dbmetrics",)):
         yield from _commands(command, prefix + (name,))
 
 
-@pytest.mark.parametrize("path, command", list(_commands()), ids=lambda v: " ".join(v) if isinstance(v, tuple) else "")
+@pytest.mark.parametrize(
+    "path, command", list(_commands()), ids=lambda v: " ".join(v) if isinstance(v, tuple) else ""
+)
 def test_every_command_has_help_with_a_runnable_example(path, command):
     with click.Context(command, info_name=" ".join(path)) as ctx:
         text = command.get_help(ctx)
@@ -236,12 +287,20 @@ def _subprocess(*args, cwd):
     root = str(Path(dbmetrics.__file__).parent.parent)
     env = {k: v for k, v in os.environ.items() if not k.startswith("DBMETRICS_")}
     env["PYTHONPATH"] = os.pathsep.join([root] + [p for p in [env.get("PYTHONPATH")] if p])
-    return subprocess.run([sys.executable, "-m", "dbmetrics.cli", *args],
-                          capture_output=True, text=True, cwd=cwd, env=env, timeout=120)
+    return subprocess.run(
+        [sys.executable, "-m", "dbmetrics.cli", *args],
+        capture_output=True,
+        text=True,
+        cwd=cwd,
+        env=env,
+        timeout=120,
+    )
 
 
 def test_python_m_runs_the_cli_as_a_subprocess(tmp_path):
-    done = _subprocess("sql", FLAGS_SQL.format(flag="true"), "--format", "json", "--fail-on-flag", cwd=tmp_path)
+    done = _subprocess(
+        "sql", FLAGS_SQL.format(flag="true"), "--format", "json", "--fail-on-flag", cwd=tmp_path
+    )
     assert done.returncode == 3, done.stderr
     assert json.loads(done.stdout)[1] == {"id": 2, "flagged": True}
     assert done.stderr == "1 flagged row in column 'flagged'\n"
@@ -258,8 +317,13 @@ def test_ctrl_c_in_a_subprocess_exits_130_and_writes_nothing(tmp_path):
     root = str(Path(dbmetrics.__file__).parent.parent)
     env = {**os.environ, "PYTHONPATH": root}
     query = "SELECT sum(hash(i * j)) AS h FROM range(2000000000) a(i), range(3) b(j)"
-    proc = subprocess.Popen([sys.executable, "-m", "dbmetrics.cli", "--verbose", "sql", query, "-o", "out.csv"],
-                            cwd=tmp_path, env=env, stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "dbmetrics.cli", "--verbose", "sql", query, "-o", "out.csv"],
+        cwd=tmp_path,
+        env=env,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     while not proc.stderr.readline().startswith("database:"):  # connected: the query starts now
         pass
     time.sleep(1)

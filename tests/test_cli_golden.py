@@ -18,8 +18,14 @@ from dbmetrics.cli.main import cli
 GOLDEN = Path(__file__).parent / "golden"
 DEMO = ["demo", "demo_parquet", "--weeks", "16", "--rows-per-day", "250", "--seed", "7"]
 ROWS = 16 * 7 * 250
-LABELLED = ["--set", "logs=demo_parquet/logs", "--set", "labels=demo_parquet/labels/labels.parquet",
-            "--set", "id_col=prediction_id"]
+LABELLED = [
+    "--set",
+    "logs=demo_parquet/logs",
+    "--set",
+    "labels=demo_parquet/labels/labels.parquet",
+    "--set",
+    "id_col=prediction_id",
+]
 
 
 def invoke(*args):
@@ -69,7 +75,9 @@ def test_rollup_on_the_demo_data_matches_the_golden_file(in_demo):
     assert sum(table["rows"].to_pylist()) == ROWS
     assert set(table["model_version"].to_pylist()) == {"v1", "v2"}  # v2 rolls out from week 9
     assert all(0 < c <= 1 for c in table["label_coverage"].to_pylist())
-    assert all(0 < ce < math.log(6) for ce in table["cross_entropy"].to_pylist())  # better than uniform
+    assert all(
+        0 < ce < math.log(6) for ce in table["cross_entropy"].to_pylist()
+    )  # better than uniform
     assert_matches_golden(in_demo / "rollup.csv", "rollup_demo.csv")
 
 
@@ -79,14 +87,17 @@ def test_drift_flags_the_over_confident_v2_and_exits_3_after_writing(in_demo):
     flagged = pcsv.read_csv(in_demo / "drift.csv").to_pylist()
     flagged = [row for row in flagged if row["flagged"]]
     assert result.stderr == f"{len(flagged)} flagged rows in column 'flagged'\n"
-    assert flagged and all(row["model_version"] == "v2" and not row["in_reference"] for row in flagged)
+    assert flagged and all(
+        row["model_version"] == "v2" and not row["in_reference"] for row in flagged
+    )
     assert_matches_golden(in_demo / "drift.csv", "drift_demo.csv")
 
 
 def test_the_project_file_shortens_the_command_line(in_demo):
     (in_demo / "dbmetrics.toml").write_text(
         '[params]\nlogs = "demo_parquet/logs"\nlabels = "demo_parquet/labels/labels.parquet"\n'
-        'id_col = "prediction_id"\n[queries.rollup]\ngrain = "month"\n')
+        'id_col = "prediction_id"\n[queries.rollup]\ngrain = "month"\n'
+    )
     try:
         result = invoke("run", "rollup", "--set", "segment_cols=region", "-o", "by_region.csv")
     finally:
@@ -103,7 +114,10 @@ def _examples():
         with click.Context(command, info_name=f"dbmetrics {name}".strip()) as ctx:
             text = command.get_help(ctx)
         block = text.split("Example:\n", 1)[1].split("\n\n", 1)[0]
-        yield name or "dbmetrics", " ".join(line.strip().rstrip("\\") for line in block.splitlines())
+        yield (
+            name or "dbmetrics",
+            " ".join(line.strip().rstrip("\\") for line in block.splitlines()),
+        )
 
 
 @pytest.mark.parametrize("name, example", list(_examples()))

@@ -63,29 +63,42 @@ def test_run_prints_a_table_with_the_template_defaults(invoke):
 
 def test_set_overrides_defaults(invoke):
     assert echoed(invoke("run", "echo", "--set", "grain=day", "-s", "note=hi", "-f", "json")) == {
-        "grain": "day", "note": "hi", "flagged": False}
+        "grain": "day",
+        "note": "hi",
+        "flagged": False,
+    }
 
 
 def test_precedence_set_over_query_table_over_params_over_default(invoke, tmp_path):
-    (tmp_path / "dbmetrics.toml").write_text(textwrap.dedent("""
+    (tmp_path / "dbmetrics.toml").write_text(
+        textwrap.dedent("""
         [params]
         grain = "month"
         note = "from params"
         logs = "ignored: echo declares no logs"
         [queries.echo]
         note = "from queries.echo"
-        """))
+        """)
+    )
     assert echoed(invoke("run", "echo", "-f", "json")) == {
-        "grain": "month", "note": "from queries.echo", "flagged": False}
+        "grain": "month",
+        "note": "from queries.echo",
+        "flagged": False,
+    }
     assert echoed(invoke("run", "echo", "--set", "grain=day", "-f", "json"))["grain"] == "day"
 
 
-def test_project_file_from_option_or_environment_with_its_own_query_dirs(invoke, tmp_path, monkeypatch):
+def test_project_file_from_option_or_environment_with_its_own_query_dirs(
+    invoke, tmp_path, monkeypatch
+):
     monkeypatch.delenv("DBMETRICS_QUERY_PATH")
     proj = tmp_path / "elsewhere"
     proj.mkdir()
     (proj / "conf.toml").write_text('query_dirs = ["../queries"]\n[params]\nnote = "project"\n')
-    assert echoed(invoke("--project", str(proj / "conf.toml"), "run", "echo", "-f", "json"))["note"] == "project"
+    assert (
+        echoed(invoke("--project", str(proj / "conf.toml"), "run", "echo", "-f", "json"))["note"]
+        == "project"
+    )
     monkeypatch.setenv("DBMETRICS_PROJECT", str(proj / "conf.toml"))
     assert echoed(invoke("run", "echo", "-f", "json"))["note"] == "project"
 
@@ -125,7 +138,9 @@ def test_a_bad_choice_is_refused(invoke):
 
 def test_hostile_values_are_bound_never_pasted(invoke):
     hostile = "x'; DROP TABLE t; --"
-    assert echoed(invoke("run", "echo", "--set", f"note={hostile}", "-f", "json"))["note"] == hostile
+    assert (
+        echoed(invoke("run", "echo", "--set", f"note={hostile}", "-f", "json"))["note"] == hostile
+    )
 
 
 def test_hostile_identifiers_are_refused_with_the_columns_that_exist(invoke):
@@ -135,10 +150,21 @@ def test_hostile_identifiers_are_refused_with_the_columns_that_exist(invoke):
     ok = invoke("--database", "t.duckdb", "run", "count_by", "--set", "logs=logs", "-f", "csv")
     assert ok.stdout == '"value","n"\n"eu",2\n"us",1\n'
     for column in ['region" FROM logs; DROP TABLE logs; --', "nope"]:
-        result = invoke("--database", "t.duckdb", "run", "count_by", "--set", "logs=logs", "--set", f"by={column}")
+        result = invoke(
+            "--database",
+            "t.duckdb",
+            "run",
+            "count_by",
+            "--set",
+            "logs=logs",
+            "--set",
+            f"by={column}",
+        )
         assert result.exit_code == 1
         assert f"column `{column}` not found in logs; columns are: region, id" in result.stderr
-    assert invoke("--database", "t.duckdb", "sql", "SELECT count(*) FROM logs", "-f", "csv").stdout.endswith("3\n")
+    assert invoke(
+        "--database", "t.duckdb", "sql", "SELECT count(*) FROM logs", "-f", "csv"
+    ).stdout.endswith("3\n")
 
 
 def test_a_missing_required_parameter_says_how_to_pass_it(invoke):
@@ -164,7 +190,10 @@ def test_queries_lists_ours_and_the_users_with_a_description(invoke):
     assert result.exit_code == 0, result.output
     lines = result.stdout.splitlines()
     assert lines[0].split() == ["query", "from", "description"]
-    assert any(line.split()[:2] == ["echo", "user"] and line.endswith("(a CLI test query).") for line in lines)
+    assert any(
+        line.split()[:2] == ["echo", "user"] and line.endswith("(a CLI test query).")
+        for line in lines
+    )
 
 
 def test_queries_name_shows_parameters_defaults_meaning_and_example(invoke):
@@ -174,7 +203,9 @@ def test_queries_name_shows_parameters_defaults_meaning_and_example(invoke):
     assert text.startswith("count_by: Rows per value of one column (a CLI test query).\n")
     assert "logs       source  (required)  a table or Parquet files" in text
     assert "by         column  region      the column to count by" in text
-    assert text.endswith("Example:\n  dbmetrics run count_by --set logs=logs.parquet --set by=region\n")
+    assert text.endswith(
+        "Example:\n  dbmetrics run count_by --set logs=logs.parquet --set by=region\n"
+    )
 
 
 def test_a_missing_query_folder_is_one_line(invoke, monkeypatch):

@@ -15,6 +15,7 @@ there (2 ulp observed), so relative agreement is only meaningful above ~1e-6.
 References: scipy.special log_softmax / softmax / logsumexp / rel_entr / entr / xlogy,
 numpy argmax / searchsorted (sklearn calibration_curve binning), Brier (1950) sum.
 """
+
 from functools import cache
 
 import numpy as np
@@ -29,6 +30,7 @@ RTOL, ATOL = 1e-9, 8 * EPS
 
 
 # ---------------------------------------------------------------- generated logs
+
 
 def random_logits(rng, n, k):
     z = rng.normal(0, 1, (n, k)) * rng.choice([0.3, 3.0, 30.0], (n, 1))
@@ -106,15 +108,25 @@ def list_column(rows):
 @cache
 def arrow_logs(k):
     cols = logs(k)
-    return pa.table({"i": np.arange(len(cols["y"])), "y": pa.array(cols["y"], pa.int64()),
-                     **{c: list_column(cols[c]) for c in ("z", "t", "p", "q")}})
+    return pa.table(
+        {
+            "i": np.arange(len(cols["y"])),
+            "y": pa.array(cols["y"], pa.int64()),
+            **{c: list_column(cols[c]) for c in ("z", "t", "p", "q")},
+        }
+    )
 
 
 # ---------------------------------------------------------------- references
 
+
 def defined_logits(z):
     """Rows softmax is defined on: no NaN, no +inf, at least one class not masked."""
-    return ~np.isnan(z).any(axis=1) & ~np.isposinf(z).any(axis=1) & (z.max(axis=1, initial=-np.inf) > -np.inf)
+    return (
+        ~np.isnan(z).any(axis=1)
+        & ~np.isposinf(z).any(axis=1)
+        & (z.max(axis=1, initial=-np.inf) > -np.inf)
+    )
 
 
 def distribution(p):
@@ -135,7 +147,7 @@ def normalised(c):
 
 def logp_of(z):
     with np.errstate(invalid="ignore"):
-        out = special.log_softmax(z, axis=1)               # scipy.special.log_softmax
+        out = special.log_softmax(z, axis=1)  # scipy.special.log_softmax
     out[~defined_logits(z)] = np.nan
     return out
 
@@ -165,7 +177,9 @@ def js_ref(p, q):
 
 
 def calib_bin(conf, bins):
-    out = np.searchsorted(np.linspace(0, 1, bins + 1)[1:-1], np.nan_to_num(conf), side="left").astype(float)
+    out = np.searchsorted(
+        np.linspace(0, 1, bins + 1)[1:-1], np.nan_to_num(conf), side="left"
+    ).astype(float)
     return np.where(np.isnan(conf), np.nan, out)
 
 
@@ -173,39 +187,109 @@ def calib_bin(conf, bins):
 REFERENCES = {
     "log_softmax": ("log_softmax(z)", "z", lambda c: logp_of(c["z"])),
     "softmax": ("softmax(z)", "z", lambda c: np.exp(logp_of(c["z"]))),
-    "logsumexp": ("logsumexp(z)", "z", lambda c: np.where(
-        defined_logits(c["z"]), special.logsumexp(c["z"], axis=1), np.nan)),
+    "logsumexp": (
+        "logsumexp(z)",
+        "z",
+        lambda c: np.where(defined_logits(c["z"]), special.logsumexp(c["z"], axis=1), np.nan),
+    ),
     "cross_entropy": ("cross_entropy(z, y)", "zy", lambda c: -pick(logp_of(c["z"]), c["y"])),
-    "soft_cross_entropy": ("soft_cross_entropy(z, t)", "zt",
-                           lambda c: soft_ce(logp_of(c["z"]), distribution(c["t"]))),
-    "softmax_entropy": ("softmax_entropy(z)", "z", lambda c: special.entr(np.exp(logp_of(c["z"]))).sum(axis=1)),
-    "predicted_class": ("predicted_class(z)", "z", lambda c: argmax_or_nan(c["z"], defined_logits(c["z"]))),
-    "is_correct": ("is_correct(z, y)", "zy", lambda c: np.where(
-        defined_logits(c["z"]) & (c["y"] >= 0), np.argmax(np.nan_to_num(c["z"], nan=0), axis=1) == c["y"], np.nan)),
+    "soft_cross_entropy": (
+        "soft_cross_entropy(z, t)",
+        "zt",
+        lambda c: soft_ce(logp_of(c["z"]), distribution(c["t"])),
+    ),
+    "softmax_entropy": (
+        "softmax_entropy(z)",
+        "z",
+        lambda c: special.entr(np.exp(logp_of(c["z"]))).sum(axis=1),
+    ),
+    "predicted_class": (
+        "predicted_class(z)",
+        "z",
+        lambda c: argmax_or_nan(c["z"], defined_logits(c["z"])),
+    ),
+    "is_correct": (
+        "is_correct(z, y)",
+        "zy",
+        lambda c: np.where(
+            defined_logits(c["z"]) & (c["y"] >= 0),
+            np.argmax(np.nan_to_num(c["z"], nan=0), axis=1) == c["y"],
+            np.nan,
+        ),
+    ),
     "confidence": ("confidence(z)", "z", lambda c: np.exp(logp_of(c["z"])).max(axis=1)),
     "margin": ("margin(z)", "z", lambda c: top2_gap(np.exp(logp_of(c["z"])))),
-    "brier_score": ("brier_score(z, y)", "zy", lambda c: np.where(c["y"] >= 0, (
-        (np.exp(logp_of(c["z"])) - np.eye(c["z"].shape[1])[np.maximum(c["y"], 0)]) ** 2).sum(axis=1), np.nan)),
-    "calibration_bin": ("calibration_bin(confidence(z), 15)", "z",
-                        lambda c: calib_bin(np.exp(logp_of(c["z"])).max(axis=1), 15)),
+    "brier_score": (
+        "brier_score(z, y)",
+        "zy",
+        lambda c: np.where(
+            c["y"] >= 0,
+            ((np.exp(logp_of(c["z"])) - np.eye(c["z"].shape[1])[np.maximum(c["y"], 0)]) ** 2).sum(
+                axis=1
+            ),
+            np.nan,
+        ),
+    ),
+    "calibration_bin": (
+        "calibration_bin(confidence(z), 15)",
+        "z",
+        lambda c: calib_bin(np.exp(logp_of(c["z"])).max(axis=1), 15),
+    ),
     "as_distribution": ("as_distribution(p)", "p", lambda c: distribution(c["p"])),
-    "cross_entropy_probs": ("cross_entropy_probs(p, y)", "py", lambda c: -np.log(pick(distribution(c["p"]), c["y"]))),
-    "soft_cross_entropy_probs": ("soft_cross_entropy_probs(p, t)", "pt", lambda c: -special.xlogy(
-        distribution(c["t"]), distribution(c["p"])).sum(axis=1)),
-    "kl_divergence": ("kl_divergence(p, q)", "pq", lambda c: special.rel_entr(
-        distribution(c["p"]), distribution(c["q"])).sum(axis=1)),
-    "js_divergence": ("js_divergence(p, q)", "pq", lambda c: js_ref(distribution(c["p"]), distribution(c["q"]))),
-    "population_stability_index": ("population_stability_index(p, q)", "pq", lambda c: (
-        special.rel_entr(normalised(c["p"]), normalised(c["q"]))
-        + special.rel_entr(normalised(c["q"]), normalised(c["p"]))).sum(axis=1)),
-    "shannon_entropy": ("shannon_entropy(p)", "p", lambda c: special.entr(distribution(c["p"])).sum(axis=1)),
+    "cross_entropy_probs": (
+        "cross_entropy_probs(p, y)",
+        "py",
+        lambda c: -np.log(pick(distribution(c["p"]), c["y"])),
+    ),
+    "soft_cross_entropy_probs": (
+        "soft_cross_entropy_probs(p, t)",
+        "pt",
+        lambda c: -special.xlogy(distribution(c["t"]), distribution(c["p"])).sum(axis=1),
+    ),
+    "kl_divergence": (
+        "kl_divergence(p, q)",
+        "pq",
+        lambda c: special.rel_entr(distribution(c["p"]), distribution(c["q"])).sum(axis=1),
+    ),
+    "js_divergence": (
+        "js_divergence(p, q)",
+        "pq",
+        lambda c: js_ref(distribution(c["p"]), distribution(c["q"])),
+    ),
+    "population_stability_index": (
+        "population_stability_index(p, q)",
+        "pq",
+        lambda c: (
+            special.rel_entr(normalised(c["p"]), normalised(c["q"]))
+            + special.rel_entr(normalised(c["q"]), normalised(c["p"]))
+        ).sum(axis=1),
+    ),
+    "shannon_entropy": (
+        "shannon_entropy(p)",
+        "p",
+        lambda c: special.entr(distribution(c["p"])).sum(axis=1),
+    ),
     # predicted_class again, this time on the probability column
-    "predicted_class_probs": ("predicted_class(p)", "p", lambda c: argmax_or_nan(
-        c["p"], ~np.isnan(c["p"]).any(axis=1) & ~np.isposinf(c["p"]).any(axis=1))),
+    "predicted_class_probs": (
+        "predicted_class(p)",
+        "p",
+        lambda c: argmax_or_nan(
+            c["p"], ~np.isnan(c["p"]).any(axis=1) & ~np.isposinf(c["p"]).any(axis=1)
+        ),
+    ),
     "confidence_probs": ("confidence_probs(p)", "p", lambda c: distribution(c["p"]).max(axis=1)),
     "margin_probs": ("margin_probs(p)", "p", lambda c: top2_gap(distribution(c["p"]))),
-    "brier_score_probs": ("brier_score_probs(p, y)", "py", lambda c: np.where(c["y"] >= 0, (
-        (distribution(c["p"]) - np.eye(c["p"].shape[1])[np.maximum(c["y"], 0)]) ** 2).sum(axis=1), np.nan)),
+    "brier_score_probs": (
+        "brier_score_probs(p, y)",
+        "py",
+        lambda c: np.where(
+            c["y"] >= 0,
+            ((distribution(c["p"]) - np.eye(c["p"].shape[1])[np.maximum(c["y"], 0)]) ** 2).sum(
+                axis=1
+            ),
+            np.nan,
+        ),
+    ),
 }
 LIST_RESULTS = {"log_softmax", "softmax", "as_distribution"}
 
@@ -221,7 +305,9 @@ def reference(name, k):
     n = len(cols["y"])
     out = [np.nan] * n
     lists = [c for c in used if c != "y"]
-    present = [i for i in range(n) if all(cols[c][i] is not None and len(cols[c][i]) for c in lists)]
+    present = [
+        i for i in range(n) if all(cols[c][i] is not None and len(cols[c][i]) for c in lists)
+    ]
     lengths = np.array([len(cols[lists[0]][i]) for i in present])
     for k_group in np.unique(lengths):
         rows = [i for i, length in zip(present, lengths) if length == k_group]
@@ -236,26 +322,37 @@ def reference(name, k):
 
 # ---------------------------------------------------------------- comparison
 
+
 def assert_agree(got, ref, what):
     """NULL exactly where ref is NaN, infinities exact, finite values to RTOL (ATOL floor)."""
     got = np.asarray(got, float)
     ref = np.asarray(ref, float)
     null_got, null_ref = np.isnan(got), np.isnan(ref)
     bad = np.flatnonzero(null_got != null_ref)
-    assert not len(bad), f"{what}: NULL mismatch at {bad[:5]}: got {got[bad[:5]]}, expected {ref[bad[:5]]}"
+    assert not len(bad), (
+        f"{what}: NULL mismatch at {bad[:5]}: got {got[bad[:5]]}, expected {ref[bad[:5]]}"
+    )
     inf = np.isinf(ref) | np.isinf(got)
     bad = np.flatnonzero(inf & (got != ref))
-    assert not len(bad), f"{what}: inf mismatch at {bad[:5]}: got {got[bad[:5]]}, expected {ref[bad[:5]]}"
+    assert not len(bad), (
+        f"{what}: inf mismatch at {bad[:5]}: got {got[bad[:5]]}, expected {ref[bad[:5]]}"
+    )
     ok = ~null_ref & ~inf
     err = np.abs(got[ok] - ref[ok]) - (RTOL * np.abs(ref[ok]) + ATOL)
     worst = int(np.argmax(err)) if err.size else 0
-    assert not err.size or err[worst] <= 0, \
+    assert not err.size or err[worst] <= 0, (
         f"{what}: got {got[ok][worst]!r}, expected {ref[ok][worst]!r} (row value {worst} of the finite ones)"
+    )
 
 
 def sql_column(con, k, call):
     con.register("logs", arrow_logs(k))
-    return con.sql(f"SELECT {call} AS v FROM logs ORDER BY i").to_arrow_table().column("v").combine_chunks()
+    return (
+        con.sql(f"SELECT {call} AS v FROM logs ORDER BY i")
+        .to_arrow_table()
+        .column("v")
+        .combine_chunks()
+    )
 
 
 def as_floats(col):
@@ -274,8 +371,11 @@ def test_function_agrees_with_reference(module_con, name, k):
     ref = reference(name, k)
     if name in LIST_RESULTS:
         row_null = np.array([null_row(r) for r in ref])
-        assert_agree(np.where(col.is_null().to_numpy(zero_copy_only=False), np.nan, 0),
-                     np.where(row_null, np.nan, 0), f"{call} row NULLs, K={k}")
+        assert_agree(
+            np.where(col.is_null().to_numpy(zero_copy_only=False), np.nan, 0),
+            np.where(row_null, np.nan, 0),
+            f"{call} row NULLs, K={k}",
+        )
         lengths = pc.list_value_length(col).fill_null(0).to_numpy(zero_copy_only=False)
         assert lengths.tolist() == [0 if null_row(r) else len(r) for r in ref]
         flat = [r for r in ref if not null_row(r)]
@@ -285,6 +385,7 @@ def test_function_agrees_with_reference(module_con, name, k):
 
 
 # ---------------------------------------------------------------- row statistics
+
 
 def row_stats_reference(kind, k, bins=10):
     """Expected fields of logit_row_stats / prob_row_stats from the references above."""
@@ -298,21 +399,31 @@ def row_stats_reference(kind, k, bins=10):
         issue = np.where(np.isnan(classes), 1, np.where(np.isnan(conf), 2, 0))
     else:
         dist = np.array([null_row(r) for r in reference("as_distribution", k)])
-        invalid = np.array([s is not None and len(s) > 0 and not np.isfinite(s).all() for s in scores])
+        invalid = np.array(
+            [s is not None and len(s) > 0 and not np.isfinite(s).all() for s in scores]
+        )
         issue = np.where(np.isnan(classes), 1, np.where(invalid, 2, np.where(dist, 3, 0)))
     label_issue = np.where(np.isnan(y), 1, np.where((y >= classes) | (y < 0), 2, 0))
     scored, labelled = issue == 0, (issue == 0) & (label_issue == 0)
-    predicted = np.array(reference("predicted_class" + ("" if kind == "logit" else "_probs"), k), float)
+    predicted = np.array(
+        reference("predicted_class" + ("" if kind == "logit" else "_probs"), k), float
+    )
     loss = np.array(reference("cross_entropy" + prefix, k), float)
     brier = np.array(reference("brier_score" + prefix, k), float)
-    entropy = np.array(reference("softmax_entropy" if kind == "logit" else "shannon_entropy", k), float)
+    entropy = np.array(
+        reference("softmax_entropy" if kind == "logit" else "shannon_entropy", k), float
+    )
     return {
-        "score_issue": issue.astype(float), "label_issue": label_issue.astype(float),
+        "score_issue": issue.astype(float),
+        "label_issue": label_issue.astype(float),
         "classes": classes,
-        "loss": np.where(labelled, loss, np.nan), "confidence": np.where(scored, conf, np.nan),
+        "loss": np.where(labelled, loss, np.nan),
+        "confidence": np.where(scored, conf, np.nan),
         "predicted": np.where(scored, predicted, np.nan),
-        "correct": np.where(labelled, predicted == y, np.nan), "brier": np.where(labelled, brier, np.nan),
-        "entropy": np.where(scored, entropy, np.nan), "bin": np.where(scored, calib_bin(conf, bins), np.nan),
+        "correct": np.where(labelled, predicted == y, np.nan),
+        "brier": np.where(labelled, brier, np.nan),
+        "entropy": np.where(scored, entropy, np.nan),
+        "bin": np.where(scored, calib_bin(conf, bins), np.nan),
     }
 
 
@@ -325,6 +436,7 @@ def test_row_stats_agree_with_references(module_con, kind, k):
 
 
 # ---------------------------------------------------------------- binary single scores
+
 
 @cache
 def binary_logs():
@@ -342,27 +454,35 @@ def binary_logs():
     y = rng.integers(0, 2, n).astype(float)
     s_null, y_null = rng.random(n) < 0.02, rng.random(n) < 0.02
     y[y_null] = np.nan
-    table = pa.table({"i": np.arange(n), "s": pa.array(s, mask=s_null), "p": pa.array(p, mask=s_null),
-                      "y": pa.array(np.nan_to_num(y).astype(np.int64), mask=y_null)})
+    table = pa.table(
+        {
+            "i": np.arange(n),
+            "s": pa.array(s, mask=s_null),
+            "p": pa.array(p, mask=s_null),
+            "y": pa.array(np.nan_to_num(y).astype(np.int64), mask=y_null),
+        }
+    )
     s = np.where(s_null, np.nan, s)
     return table, s, np.where(s_null | np.isnan(s), np.nan, p), y
 
 
 def binary_reference(name, s, p, y):
     with np.errstate(all="ignore"):
-        if name == "binary_cross_entropy":      # logits [0, s]: scipy.special.log_softmax
+        if name == "binary_cross_entropy":  # logits [0, s]: scipy.special.log_softmax
             logp = special.log_softmax(np.column_stack([np.zeros_like(s), s]), axis=1)
             out = -np.where(y == 1, logp[:, 1], logp[:, 0])
             return np.where(np.isposinf(s) | np.isnan(y), np.nan, out)
         valid = (p >= 0) & (p <= 1) & ~np.isnan(y)
         if name == "binary_cross_entropy_prob":  # sklearn log_loss without its eps clip: -xlogy
             out = -special.xlogy(y, p) - special.xlogy(1 - y, 1 - p)
-        else:                                    # binary Brier, (p - y)^2 (Brier 1950, halved)
+        else:  # binary Brier, (p - y)^2 (Brier 1950, halved)
             out = (p - y) ** 2
         return np.where(valid, out, np.nan)
 
 
-@pytest.mark.parametrize("name", ["binary_cross_entropy", "binary_cross_entropy_prob", "binary_brier_score"])
+@pytest.mark.parametrize(
+    "name", ["binary_cross_entropy", "binary_cross_entropy_prob", "binary_brier_score"]
+)
 def test_binary_functions_agree_with_references(module_con, name):
     table, s, p, y = binary_logs()
     module_con.register("b", table)

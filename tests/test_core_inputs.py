@@ -3,6 +3,7 @@ ragged rows, DuckDB batch boundaries, registration.
 
 References: the CONTRACT input rules; values against scipy.special.log_softmax.
 """
+
 import math
 
 import duckdb
@@ -19,30 +20,65 @@ NULL_LIST, EMPTY_LIST = "NULL::DOUBLE[]", "[]::DOUBLE[]"
 # Every registered function, called with {a} (and {b}) standing for its list arguments;
 # an unused list argument gets a valid distribution of 3 classes.
 LIST_CALLS = {
-    "log_softmax": "log_softmax({a})", "softmax": "softmax({a})", "logsumexp": "logsumexp({a})",
+    "log_softmax": "log_softmax({a})",
+    "softmax": "softmax({a})",
+    "logsumexp": "logsumexp({a})",
     "as_distribution": "as_distribution({a})",
-    "cross_entropy": "cross_entropy({a}, 0)", "cross_entropy_probs": "cross_entropy_probs({a}, 0)",
+    "cross_entropy": "cross_entropy({a}, 0)",
+    "cross_entropy_probs": "cross_entropy_probs({a}, 0)",
     "soft_cross_entropy": "soft_cross_entropy({a}, {b})",
     "soft_cross_entropy_probs": "soft_cross_entropy_probs({a}, {b})",
-    "kl_divergence": "kl_divergence({a}, {b})", "js_divergence": "js_divergence({a}, {b})",
+    "kl_divergence": "kl_divergence({a}, {b})",
+    "js_divergence": "js_divergence({a}, {b})",
     "population_stability_index": "population_stability_index({a}, {b})",
-    "shannon_entropy": "shannon_entropy({a})", "softmax_entropy": "softmax_entropy({a})",
-    "predicted_class": "predicted_class({a})", "is_correct": "is_correct({a}, 0)",
-    "confidence": "confidence({a})", "confidence_probs": "confidence_probs({a})",
-    "margin": "margin({a})", "margin_probs": "margin_probs({a})",
-    "brier_score": "brier_score({a}, 0)", "brier_score_probs": "brier_score_probs({a}, 0)",
+    "shannon_entropy": "shannon_entropy({a})",
+    "softmax_entropy": "softmax_entropy({a})",
+    "predicted_class": "predicted_class({a})",
+    "is_correct": "is_correct({a}, 0)",
+    "confidence": "confidence({a})",
+    "confidence_probs": "confidence_probs({a})",
+    "margin": "margin({a})",
+    "margin_probs": "margin_probs({a})",
+    "brier_score": "brier_score({a}, 0)",
+    "brier_score_probs": "brier_score_probs({a}, 0)",
     "temperature_scaled_losses": "temperature_scaled_losses({a}, 0, [1.0, 2.0], 'logits')",
 }
-TWO_LISTS = ("soft_cross_entropy", "soft_cross_entropy_probs", "kl_divergence", "js_divergence",
-             "population_stability_index")
-LOGIT_FUNCTIONS = ("log_softmax", "softmax", "logsumexp", "cross_entropy", "soft_cross_entropy",
-                   "softmax_entropy", "predicted_class", "is_correct", "confidence", "margin", "brier_score",
-                   "temperature_scaled_losses")
-SCALAR_CALLS = {"binary_cross_entropy", "binary_cross_entropy_prob", "binary_brier_score",
-                "calibration_bin", "logit_row_stats", "prob_row_stats"}
-LABELLED = {"cross_entropy": "cross_entropy({a}, {y})", "cross_entropy_probs": "cross_entropy_probs({a}, {y})",
-            "is_correct": "is_correct({a}, {y})", "brier_score": "brier_score({a}, {y})",
-            "brier_score_probs": "brier_score_probs({a}, {y})"}
+TWO_LISTS = (
+    "soft_cross_entropy",
+    "soft_cross_entropy_probs",
+    "kl_divergence",
+    "js_divergence",
+    "population_stability_index",
+)
+LOGIT_FUNCTIONS = (
+    "log_softmax",
+    "softmax",
+    "logsumexp",
+    "cross_entropy",
+    "soft_cross_entropy",
+    "softmax_entropy",
+    "predicted_class",
+    "is_correct",
+    "confidence",
+    "margin",
+    "brier_score",
+    "temperature_scaled_losses",
+)
+SCALAR_CALLS = {
+    "binary_cross_entropy",
+    "binary_cross_entropy_prob",
+    "binary_brier_score",
+    "calibration_bin",
+    "logit_row_stats",
+    "prob_row_stats",
+}
+LABELLED = {
+    "cross_entropy": "cross_entropy({a}, {y})",
+    "cross_entropy_probs": "cross_entropy_probs({a}, {y})",
+    "is_correct": "is_correct({a}, {y})",
+    "brier_score": "brier_score({a}, {y})",
+    "brier_score_probs": "brier_score_probs({a}, {y})",
+}
 VALID = "[0.2, 0.3, 0.5]"
 
 
@@ -62,6 +98,7 @@ def test_every_registered_function_is_covered_here():
 
 
 # ---------------------------------------------------------------- NULL, empty, NaN, inf
+
 
 @pytest.mark.parametrize("fn", sorted(LIST_CALLS))
 def test_null_empty_or_nan_scores_give_null(module_con, fn):
@@ -89,12 +126,20 @@ def test_minus_inf_logit_is_a_masked_class(con):
     assert one(con, "SELECT predicted_class(['-inf'::DOUBLE, -5.0, '-inf'::DOUBLE])") == 1
 
 
-ZERO_CALLS = ["cross_entropy_probs([1.0, 0.0], 0)", "binary_cross_entropy_prob(1.0, 1)",
-              "binary_cross_entropy_prob(0.0, 0)", "soft_cross_entropy_probs([1.0, 0.0], [1.0, 0.0])",
-              "soft_cross_entropy([0.0, '-inf'::DOUBLE], [1.0, 0.0])", "shannon_entropy([1.0, 0.0])",
-              "softmax_entropy([0.0, '-inf'::DOUBLE])", "softmax_entropy([1e4, 0.0])",
-              "cross_entropy([1e4, 0.0], 0)", "prob_row_stats([1.0, 0.0], 0, 10).loss",
-              "logit_row_stats([0.0, '-inf'::DOUBLE], 0, 10).entropy", "kl_divergence([1.0, 0.0], [1.0, 0.0])"]
+ZERO_CALLS = [
+    "cross_entropy_probs([1.0, 0.0], 0)",
+    "binary_cross_entropy_prob(1.0, 1)",
+    "binary_cross_entropy_prob(0.0, 0)",
+    "soft_cross_entropy_probs([1.0, 0.0], [1.0, 0.0])",
+    "soft_cross_entropy([0.0, '-inf'::DOUBLE], [1.0, 0.0])",
+    "shannon_entropy([1.0, 0.0])",
+    "softmax_entropy([0.0, '-inf'::DOUBLE])",
+    "softmax_entropy([1e4, 0.0])",
+    "cross_entropy([1e4, 0.0], 0)",
+    "prob_row_stats([1.0, 0.0], 0, 10).loss",
+    "logit_row_stats([0.0, '-inf'::DOUBLE], 0, 10).entropy",
+    "kl_divergence([1.0, 0.0], [1.0, 0.0])",
+]
 
 
 @pytest.mark.parametrize("call", ZERO_CALLS)
@@ -105,6 +150,7 @@ def test_a_zero_loss_or_entropy_is_plus_zero(module_con, call):
 
 
 # ---------------------------------------------------------------- structural errors
+
 
 @pytest.mark.parametrize("fn", TWO_LISTS)
 def test_class_count_mismatch_is_an_error_naming_the_function_and_both_lengths(con, fn):
@@ -126,7 +172,9 @@ def test_label_outside_0_k_is_an_error_naming_the_bad_value(module_con, fn):
             one(module_con, "SELECT " + LABELLED[fn].format(a=VALID, y=label))
 
 
-@pytest.mark.parametrize("fn", ["binary_cross_entropy", "binary_cross_entropy_prob", "binary_brier_score"])
+@pytest.mark.parametrize(
+    "fn", ["binary_cross_entropy", "binary_cross_entropy_prob", "binary_brier_score"]
+)
 @pytest.mark.parametrize("label", [2, -1])
 def test_binary_label_must_be_0_or_1(con, fn, label):
     with pytest.raises(duckdb.Error, match=rf"{fn}: label {label} is not 0 or 1"):
@@ -139,14 +187,19 @@ def test_label_is_not_checked_where_scores_are_null(con):
 
 # ---------------------------------------------------------------- column types
 
+
 @pytest.mark.parametrize("scores_type", ["FLOAT[]", "DOUBLE[]", "FLOAT[3]", "DOUBLE[3]"])
 @pytest.mark.parametrize("label_type", ["TINYINT", "SMALLINT", "INTEGER", "BIGINT", "UTINYINT"])
 def test_score_and_label_column_types(con, scores_type, label_type):
     con.execute(f"CREATE TABLE t (z {scores_type}, y {label_type})")
     con.execute("INSERT INTO t VALUES ([0.5, 1.5, -2.0], 1), (NULL, 0), ([1.0, 2.0, 3.0], NULL)")
-    got = con.sql("SELECT cross_entropy(z, y), log_softmax(z), logit_row_stats(z, y, 10).loss FROM t").fetchall()
-    z = np.array([0.5, 1.5, -2.0], np.float32 if "FLOAT" in scores_type else np.float64).astype(np.float64)
-    ref = special.log_softmax(z)                                       # scipy.special.log_softmax
+    got = con.sql(
+        "SELECT cross_entropy(z, y), log_softmax(z), logit_row_stats(z, y, 10).loss FROM t"
+    ).fetchall()
+    z = np.array([0.5, 1.5, -2.0], np.float32 if "FLOAT" in scores_type else np.float64).astype(
+        np.float64
+    )
+    ref = special.log_softmax(z)  # scipy.special.log_softmax
     assert got[0][0] == pytest.approx(-ref[1], rel=1e-14)
     assert got[0][1] == pytest.approx(ref.tolist(), rel=1e-14)
     assert got[0][2] == pytest.approx(-ref[1], rel=1e-12)
@@ -159,18 +212,31 @@ def test_parquet_list_of_float_column(con, tmp_path):
     z = rng.normal(0, 3, (3000, 4)).astype(np.float32)
     y = rng.integers(0, 4, 3000).astype(np.int32)
     path = tmp_path / "log.parquet"
-    pq.write_table(pa.table({"i": np.arange(3000), "z": pa.array(list(z), pa.list_(pa.float32())), "y": y}), path)
-    got = [r[0] for r in con.execute("SELECT cross_entropy(z, y) FROM read_parquet(?) ORDER BY i",
-                                     [str(path)]).fetchall()]
+    pq.write_table(
+        pa.table({"i": np.arange(3000), "z": pa.array(list(z), pa.list_(pa.float32())), "y": y}),
+        path,
+    )
+    got = [
+        r[0]
+        for r in con.execute(
+            "SELECT cross_entropy(z, y) FROM read_parquet(?) ORDER BY i", [str(path)]
+        ).fetchall()
+    ]
     ref = -special.log_softmax(z.astype(np.float64), axis=1)[np.arange(3000), y]
     assert np.allclose(got, ref, rtol=1e-12, atol=0)
 
 
 # ---------------------------------------------------------------- ragged rows and batches
 
+
 def ragged_table(rows, labels):
-    return pa.table({"i": np.arange(len(rows)), "z": pa.array(rows, pa.list_(pa.float64())),
-                     "y": pa.array(labels, pa.int64())})
+    return pa.table(
+        {
+            "i": np.arange(len(rows)),
+            "z": pa.array(rows, pa.list_(pa.float64())),
+            "y": pa.array(labels, pa.int64()),
+        }
+    )
 
 
 PER_ROW_SQL = """SELECT cross_entropy(z, y), log_softmax(z), softmax(z), logsumexp(z), softmax_entropy(z),
@@ -183,8 +249,17 @@ def per_row_reference(z, y):
     z = np.asarray(z, float)
     logp = special.log_softmax(z)
     p = special.softmax(z)
-    return (-logp[y], logp.tolist(), p.tolist(), special.logsumexp(z), special.entr(p).sum(),
-            p.max(), int(np.argmax(z)), ((p - np.eye(len(z))[y]) ** 2).sum(), -logp[y])
+    return (
+        -logp[y],
+        logp.tolist(),
+        p.tolist(),
+        special.logsumexp(z),
+        special.entr(p).sum(),
+        p.max(),
+        int(np.argmax(z)),
+        ((p - np.eye(len(z))[y]) ** 2).sum(),
+        -logp[y],
+    )
 
 
 def assert_rows_match(got, expected):
@@ -198,19 +273,21 @@ def test_ragged_rows_agree_with_per_row_references(con):
     rows = [rng.normal(0, 4, int(rng.integers(1, 20))).tolist() for _ in range(2100)]
     labels = [int(rng.integers(0, len(r))) for r in rows]
     con.register("t", ragged_table(rows, labels))
-    assert_rows_match(con.sql(PER_ROW_SQL).fetchall(), [per_row_reference(z, y) for z, y in zip(rows, labels)])
+    assert_rows_match(
+        con.sql(PER_ROW_SQL).fetchall(), [per_row_reference(z, y) for z, y in zip(rows, labels)]
+    )
 
 
 def test_uniform_path_with_nulls_path_and_ragged_path_agree(con):
     rng = np.random.default_rng(12)
     rows = rng.normal(0, 4, (500, 5)).tolist()
     labels = rng.integers(0, 5, 500).tolist()
-    con.register("t", ragged_table(rows, labels))                   # every row K = 5: zero-copy path
+    con.register("t", ragged_table(rows, labels))  # every row K = 5: zero-copy path
     uniform = con.sql(PER_ROW_SQL).fetchall()
-    with_nulls = [x for r in rows for x in (r, None)]                # uniform K, NULL rows between
+    with_nulls = [x for r in rows for x in (r, None)]  # uniform K, NULL rows between
     con.register("t", ragged_table(with_nulls, [y for y in labels for _ in (0, 1)]))
     nulls = con.sql(PER_ROW_SQL).fetchall()
-    mixed = [x for r in rows for x in (r, [0.0, 1.0, 2.0])]          # K = 5 and K = 3 interleaved
+    mixed = [x for r in rows for x in (r, [0.0, 1.0, 2.0])]  # K = 5 and K = 3 interleaved
     con.register("t", ragged_table(mixed, [x for y in labels for x in (y, 2)]))
     ragged = con.sql(PER_ROW_SQL).fetchall()
     assert nulls[1::2] == [(None,) * 9] * 500
@@ -224,14 +301,18 @@ def test_batch_sizes_and_nulls_across_vector_boundaries(con, n):
     rng = np.random.default_rng(n)
     z = rng.normal(0, 5, (n, 4))
     y = rng.integers(0, 4, n)
-    null_rows = {i for i in (0, 1, 2046, 2047, 2048, 2049, 4095, 4096, n - 1) if i < n} if n > 2 else set()
+    null_rows = (
+        {i for i in (0, 1, 2046, 2047, 2048, 2049, 4095, 4096, n - 1) if i < n} if n > 2 else set()
+    )
     null_labels = {i for i in range(7, n, 331)} | ({2047} if n > 2047 else set())
     rows = [None if i in null_rows else z[i].tolist() for i in range(n)]
     labels = [None if i in null_labels else int(y[i]) for i in range(n)]
     con.register("t", ragged_table(rows, labels))
-    got = con.sql("SELECT cross_entropy(z, y), logsumexp(z), logit_row_stats(z, y, 10).loss, "
-                  "log_softmax(z) FROM t ORDER BY i").fetchall()
-    logp = special.log_softmax(z, axis=1)                              # scipy.special.log_softmax
+    got = con.sql(
+        "SELECT cross_entropy(z, y), logsumexp(z), logit_row_stats(z, y, 10).loss, "
+        "log_softmax(z) FROM t ORDER BY i"
+    ).fetchall()
+    logp = special.log_softmax(z, axis=1)  # scipy.special.log_softmax
     lse = special.logsumexp(z, axis=1)
     for i, (ce, lsum, loss, ls) in enumerate(got):
         if i in null_rows:
@@ -250,9 +331,13 @@ def test_filtered_and_sliced_rows(con):
     rng = np.random.default_rng(13)
     z = rng.normal(0, 3, (6000, 3))
     con.register("t", ragged_table(z.tolist(), [0] * 6000))
-    got = con.sql("SELECT i, logsumexp(z) FROM t WHERE i % 3 = 1 ORDER BY i LIMIT 1200 OFFSET 700").fetchall()
+    got = con.sql(
+        "SELECT i, logsumexp(z) FROM t WHERE i % 3 = 1 ORDER BY i LIMIT 1200 OFFSET 700"
+    ).fetchall()
     assert [g[0] for g in got] == list(range(2101, 2101 + 3 * 1200, 3))
-    assert np.allclose([g[1] for g in got], special.logsumexp(z[[g[0] for g in got]], axis=1), rtol=1e-14)
+    assert np.allclose(
+        [g[1] for g in got], special.logsumexp(z[[g[0] for g in got]], axis=1), rtol=1e-14
+    )
 
 
 def test_constant_and_literal_arguments(con):
@@ -263,10 +348,13 @@ def test_constant_and_literal_arguments(con):
 
 # ---------------------------------------------------------------- registration
 
+
 def test_register_twice_is_harmless(con):
     assert dbmetrics.register(con) is con
     dbmetrics.register(con)
-    assert one(con, "SELECT cross_entropy([1.0, 2.0, 3.0], 2)") == pytest.approx(0.4076059644443803, rel=1e-14)
+    assert one(con, "SELECT cross_entropy([1.0, 2.0, 3.0], 2)") == pytest.approx(
+        0.4076059644443803, rel=1e-14
+    )
     assert one(con.cursor(), "SELECT logsumexp([0.0, 0.0])") == pytest.approx(np.log(2), rel=1e-15)
 
 
@@ -280,5 +368,10 @@ def test_register_on_a_plain_connection_and_connect_config():
 
 
 def test_no_registered_name_shadows_a_duckdb_builtin():
-    builtins = {r[0] for r in duckdb.connect().sql("SELECT DISTINCT function_name FROM duckdb_functions()").fetchall()}
+    builtins = {
+        r[0]
+        for r in duckdb.connect()
+        .sql("SELECT DISTINCT function_name FROM duckdb_functions()")
+        .fetchall()
+    }
     assert not {f.name for f in dbmetrics.FUNCTIONS} & builtins

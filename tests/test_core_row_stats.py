@@ -4,6 +4,7 @@ Each field must equal the scalar SQL function of the same name and an outside
 reference row by row: scipy.special log_softmax / softmax / entr, numpy argmax,
 Brier (1950) sum, sklearn calibration_curve binning (searchsorted on linspace).
 """
+
 import math
 
 import numpy as np
@@ -17,28 +18,34 @@ INF, NAN = math.inf, math.nan
 
 
 def stats(con, fn, scores, label, bins=10):
-    return con.execute(f"SELECT {fn}($1::DOUBLE[], $2::BIGINT, $3)", [scores, label, bins]).fetchall()[0][0]
+    return con.execute(
+        f"SELECT {fn}($1::DOUBLE[], $2::BIGINT, $3)", [scores, label, bins]
+    ).fetchall()[0][0]
 
 
 # ---------------------------------------------------------------- issue codes
 
-@pytest.mark.parametrize("fn, scores, issue", [
-    ("logit_row_stats", [1.0, 2.0], 0),
-    ("logit_row_stats", [0.0, -INF], 0),            # one masked class is fine
-    ("logit_row_stats", None, 1),
-    ("logit_row_stats", [], 1),
-    ("logit_row_stats", [NAN, 1.0], 2),
-    ("logit_row_stats", [INF, 1.0], 2),
-    ("logit_row_stats", [-INF, -INF], 2),
-    ("prob_row_stats", [0.3, 0.7], 0),
-    ("prob_row_stats", [0.3, 0.7005], 0),           # within 1e-3: renormalised
-    ("prob_row_stats", None, 1),
-    ("prob_row_stats", [], 1),
-    ("prob_row_stats", [NAN, 0.5], 2),
-    ("prob_row_stats", [INF, 0.0], 2),
-    ("prob_row_stats", [1.2, -0.2], 3),
-    ("prob_row_stats", [0.5, 0.6], 3),
-])
+
+@pytest.mark.parametrize(
+    "fn, scores, issue",
+    [
+        ("logit_row_stats", [1.0, 2.0], 0),
+        ("logit_row_stats", [0.0, -INF], 0),  # one masked class is fine
+        ("logit_row_stats", None, 1),
+        ("logit_row_stats", [], 1),
+        ("logit_row_stats", [NAN, 1.0], 2),
+        ("logit_row_stats", [INF, 1.0], 2),
+        ("logit_row_stats", [-INF, -INF], 2),
+        ("prob_row_stats", [0.3, 0.7], 0),
+        ("prob_row_stats", [0.3, 0.7005], 0),  # within 1e-3: renormalised
+        ("prob_row_stats", None, 1),
+        ("prob_row_stats", [], 1),
+        ("prob_row_stats", [NAN, 0.5], 2),
+        ("prob_row_stats", [INF, 0.0], 2),
+        ("prob_row_stats", [1.2, -0.2], 3),
+        ("prob_row_stats", [0.5, 0.6], 3),
+    ],
+)
 def test_score_issue_codes(con, fn, scores, issue):
     # CONTRACT: 0 ok, 1 missing, 2 invalid (NaN, +inf, every class masked), 3 not a distribution.
     s = stats(con, fn, scores, 0)
@@ -67,21 +74,31 @@ def test_missing_scores_have_no_class_count(con):
 
 # ---------------------------------------------------------------- values
 
+
 def test_masked_true_class_gives_infinite_loss(con):
-    # -log 0 = +inf (torch; reference-checks §2 B4); rollups count such rows apart.
+    # -log 0 = +inf (torch.nn.functional.cross_entropy gives inf); rollups count such rows apart.
     s = stats(con, "logit_row_stats", [0.0, -INF, 0.0], 1)
-    assert s["loss"] == INF and s["brier"] == pytest.approx(1.5, rel=1e-15) and s["correct"] is False
+    assert (
+        s["loss"] == INF and s["brier"] == pytest.approx(1.5, rel=1e-15) and s["correct"] is False
+    )
     assert stats(con, "prob_row_stats", [0.5, 0.0, 0.5], 1)["loss"] == INF
 
 
 def test_extreme_logits(con):
     s = stats(con, "logit_row_stats", [1e4, -1e4, 0.0], 1, 15)
-    assert (s["loss"], s["confidence"], s["predicted"], s["correct"], s["brier"], s["entropy"], s["bin"]) \
-        == (20000.0, 1.0, 0, False, 2.0, 0.0, 14)
+    assert (
+        s["loss"],
+        s["confidence"],
+        s["predicted"],
+        s["correct"],
+        s["brier"],
+        s["entropy"],
+        s["bin"],
+    ) == (20000.0, 1.0, 0, False, 2.0, 0.0, 14)
 
 
 def test_b2_worked_example(con):
-    # logits [1,2,3], label 2 (reference-checks §2 B2); entropy of softmax by scipy.special.entr.
+    # logits [1,2,3], label 2 (scipy.special.log_softmax); entropy of softmax by scipy.special.entr.
     s = stats(con, "logit_row_stats", [1.0, 2.0, 3.0], 2, 10)
     p = special.softmax([1.0, 2.0, 3.0])
     assert s["loss"] == pytest.approx(0.4076059644443803, rel=1e-14)
@@ -120,9 +137,19 @@ def mixed_rows(kind, n=3000, seed=8):
 @pytest.mark.parametrize("kind", ["logit", "prob"])
 def test_every_field_equals_its_scalar_function(con, kind):
     rows, labels = mixed_rows(kind)
-    con.register("t", pa.table({"i": np.arange(len(rows)), "z": pa.array(rows, pa.list_(pa.float64())),
-                                "y": pa.array(labels, pa.int64())}))
-    got = con.sql(f"SELECT {kind}_row_stats(z, y, 15) AS s, {scalar_sql(kind)} FROM t ORDER BY i").fetchall()
+    con.register(
+        "t",
+        pa.table(
+            {
+                "i": np.arange(len(rows)),
+                "z": pa.array(rows, pa.list_(pa.float64())),
+                "y": pa.array(labels, pa.int64()),
+            }
+        ),
+    )
+    got = con.sql(
+        f"SELECT {kind}_row_stats(z, y, 15) AS s, {scalar_sql(kind)} FROM t ORDER BY i"
+    ).fetchall()
     for r in got:
         s, scalar = r[0], dict(zip(NUMERIC, r[1:]))
         if s["label_issue"] == 1:
@@ -136,19 +163,21 @@ def test_every_field_equals_its_scalar_function(con, kind):
                 assert a == b, (f, s, scalar)
 
 
-@pytest.mark.parametrize("k", [3, 40])           # both sides of the short-row loop (32 classes)
+@pytest.mark.parametrize("k", [3, 40])  # both sides of the short-row loop (32 classes)
 def test_logit_fields_match_scipy_row_by_row(con, k):
     rng = np.random.default_rng(k)
     n = 2500
     z = rng.normal(0, 4, (n, k))
     z[rng.random((n, k)) < 0.05] = -np.inf
-    z[0] = -np.inf                                # every class masked: invalid row
+    z[0] = -np.inf  # every class masked: invalid row
     y = rng.integers(0, k, n)
-    con.register("t", pa.table({"i": np.arange(n), "z": pa.array(list(z), pa.list_(pa.float64())), "y": y}))
+    con.register(
+        "t", pa.table({"i": np.arange(n), "z": pa.array(list(z), pa.list_(pa.float64())), "y": y})
+    )
     got = [r[0] for r in con.sql("SELECT logit_row_stats(z, y, 10) FROM t ORDER BY i").fetchall()]
     ok = np.isfinite(z.max(axis=1))
     with np.errstate(invalid="ignore"):
-        logp = special.log_softmax(z, axis=1)     # scipy.special.log_softmax
+        logp = special.log_softmax(z, axis=1)  # scipy.special.log_softmax
     p = np.exp(logp)
     col = {f: np.array([g[f] if g[f] is not None else np.nan for g in got], float) for f in NUMERIC}
     assert [g["score_issue"] for g in got] == np.where(ok, 0, 2).tolist()
@@ -158,8 +187,8 @@ def test_logit_fields_match_scipy_row_by_row(con, k):
         "confidence": p.max(axis=1),
         "predicted": np.argmax(z, axis=1),
         "correct": np.argmax(z, axis=1) == y,
-        "brier": ((p - np.eye(k)[y]) ** 2).sum(axis=1),                   # Brier (1950)
-        "entropy": special.entr(p).sum(axis=1),                          # scipy.special.entr
+        "brier": ((p - np.eye(k)[y]) ** 2).sum(axis=1),  # Brier (1950)
+        "entropy": special.entr(p).sum(axis=1),  # scipy.special.entr
         "bin": np.searchsorted(np.linspace(0, 1, 11)[1:-1], p.max(axis=1), side="left"),
     }
     for f, r in ref.items():
@@ -174,7 +203,9 @@ def test_prob_fields_match_numpy_row_by_row(con):
     p[rng.random((n, k)) < 0.03] = 0.0
     p /= p.sum(axis=1, keepdims=True)
     y = rng.integers(0, k, n)
-    con.register("t", pa.table({"i": np.arange(n), "p": pa.array(list(p), pa.list_(pa.float64())), "y": y}))
+    con.register(
+        "t", pa.table({"i": np.arange(n), "p": pa.array(list(p), pa.list_(pa.float64())), "y": y})
+    )
     got = [r[0] for r in con.sql("SELECT prob_row_stats(p, y, 10) FROM t ORDER BY i").fetchall()]
     col = {f: np.array([g[f] for g in got], float) for f in NUMERIC}
     with np.errstate(divide="ignore"):
@@ -184,10 +215,13 @@ def test_prob_fields_match_numpy_row_by_row(con):
     assert np.allclose(col["confidence"], p.max(axis=1), rtol=1e-14, atol=0)
     assert np.allclose(col["brier"], ((p - np.eye(k)[y]) ** 2).sum(axis=1), rtol=1e-12, atol=1e-16)
     assert np.allclose(col["entropy"], special.entr(p).sum(axis=1), rtol=1e-12, atol=0)
-    assert np.array_equal(col["bin"], np.searchsorted(np.linspace(0, 1, 11)[1:-1], p.max(axis=1), side="left"))
+    assert np.array_equal(
+        col["bin"], np.searchsorted(np.linspace(0, 1, 11)[1:-1], p.max(axis=1), side="left")
+    )
 
 
 # ---------------------------------------------------------------- bins argument
+
 
 def test_bins_must_be_one_positive_integer(con):
     with pytest.raises(Exception, match="bins must be one whole number in 1..1000000"):

@@ -1,4 +1,5 @@
 """The demo log generator: deterministic, as documented in demo_parquet/README.md, events planted."""
+
 from datetime import date, datetime, timedelta
 from pathlib import Path
 
@@ -23,19 +24,25 @@ NOT_AS_DESCRIBED = CLASSES.index("not_as_described")
 
 def read_demo(root: Path) -> dict:
     """Every table of a generated demo folder, keyed by its relative path."""
-    tables = {p.relative_to(root).as_posix(): pq.read_table(p) for p in sorted(root.glob("**/*.parquet"))}
+    tables = {
+        p.relative_to(root).as_posix(): pq.read_table(p) for p in sorted(root.glob("**/*.parquet"))
+    }
     tables["regions.csv"] = csv.read_csv(root / "regions.csv")
     return tables
 
 
 def same(a: pa.Table, b: pa.Table) -> bool:
     """Table equality where the logits are compared by their bits, so that a NaN equals itself."""
+
     def bits(t):
         if "logits" not in t.column_names:
             return t
         z = t["logits"].combine_chunks()
-        as_int = pa.ListArray.from_arrays(z.offsets, pa.array(z.values.to_numpy().view(np.uint32)), mask=z.is_null())
+        as_int = pa.ListArray.from_arrays(
+            z.offsets, pa.array(z.values.to_numpy().view(np.uint32)), mask=z.is_null()
+        )
         return t.set_column(t.column_names.index("logits"), "logits", as_int)
+
     return bits(a).equals(bits(b))
 
 
@@ -56,9 +63,12 @@ def rows(committed) -> dict:
     z[ok] = np.stack(logs["logits"].filter(pa.array(ok)).to_numpy(zero_copy_only=False))
     p = np.exp(z - z.max(axis=1, keepdims=True))
     return {
-        "ts": ts, "week": (ts - np.datetime64(START)) // np.timedelta64(7, "D") + 1,
-        "version": logs["model_version"].to_numpy(), "region": logs["region"].to_numpy(),
-        "z": z, "p": p / p.sum(axis=1, keepdims=True),
+        "ts": ts,
+        "week": (ts - np.datetime64(START)) // np.timedelta64(7, "D") + 1,
+        "version": logs["model_version"].to_numpy(),
+        "region": logs["region"].to_numpy(),
+        "z": z,
+        "p": p / p.sum(axis=1, keepdims=True),
         "label": pc.take(labels["label"], at).fill_null(-1).to_numpy(),
         "labelled_at": pc.take(labels["labelled_at"], at).to_numpy(),
     }
@@ -90,7 +100,9 @@ def test_same_seed_gives_identical_tables_and_another_seed_does_not(tmp_path):
     first, again, other = (read_demo(tmp_path / name) for name in "abc")
     assert first.keys() == again.keys() == other.keys()
     assert all(same(first[k], again[k]) for k in first)
-    assert not same(first["logs/month=2026-01/part-0.parquet"], other["logs/month=2026-01/part-0.parquet"])
+    assert not same(
+        first["logs/month=2026-01/part-0.parquet"], other["logs/month=2026-01/part-0.parquet"]
+    )
 
 
 def test_committed_demo_equals_a_fresh_generation_with_the_defaults(tmp_path, committed):
@@ -103,35 +115,66 @@ def test_committed_demo_equals_a_fresh_generation_with_the_defaults(tmp_path, co
 
 def test_generate_returns_the_paths_it_wrote(tmp_path):
     paths = demo.generate(tmp_path, rows_per_day=5, weeks=1)
-    assert paths == {"logs": tmp_path / "logs", "labels": tmp_path / "labels" / "labels.parquet",
-                     "regions": tmp_path / "regions.csv"}
+    assert paths == {
+        "logs": tmp_path / "logs",
+        "labels": tmp_path / "labels" / "labels.parquet",
+        "regions": tmp_path / "regions.csv",
+    }
     assert sorted(p.name for p in tmp_path.glob("logs/*")) == ["month=2026-01"]
 
 
 def test_schema_is_as_documented(committed):
-    logs_schema = pa.schema([("prediction_id", pa.string()), ("ts", pa.timestamp("us")),
-                             ("model_version", pa.string()), ("region", pa.string()),
-                             ("channel", pa.string()), ("customer_tier", pa.string()),
-                             ("logits", pa.list_(pa.float32()))])
+    logs_schema = pa.schema(
+        [
+            ("prediction_id", pa.string()),
+            ("ts", pa.timestamp("us")),
+            ("model_version", pa.string()),
+            ("region", pa.string()),
+            ("channel", pa.string()),
+            ("customer_tier", pa.string()),
+            ("logits", pa.list_(pa.float32())),
+        ]
+    )
     for month in MONTHS:
         assert committed[f"logs/month={month}/part-0.parquet"].schema.equals(logs_schema)
-    assert committed["labels/labels.parquet"].schema.equals(pa.schema(
-        [("prediction_id", pa.string()), ("label", pa.int32()), ("labelled_at", pa.timestamp("us"))]))
-    assert committed["regions.csv"].schema.equals(pa.schema(
-        [("region", pa.string()), ("region_name", pa.string()), ("warehouse", pa.string()), ("margin_pct", pa.float64())]))
+    assert committed["labels/labels.parquet"].schema.equals(
+        pa.schema(
+            [
+                ("prediction_id", pa.string()),
+                ("label", pa.int32()),
+                ("labelled_at", pa.timestamp("us")),
+            ]
+        )
+    )
+    assert committed["regions.csv"].schema.equals(
+        pa.schema(
+            [
+                ("region", pa.string()),
+                ("region_name", pa.string()),
+                ("warehouse", pa.string()),
+                ("margin_pct", pa.float64()),
+            ]
+        )
+    )
 
 
 def test_row_counts_months_and_ids_are_as_documented(committed, rows):
-    assert sorted(k for k in committed if k.startswith("logs/")) == [f"logs/month={m}/part-0.parquet" for m in MONTHS]
+    assert sorted(k for k in committed if k.startswith("logs/")) == [
+        f"logs/month={m}/part-0.parquet" for m in MONTHS
+    ]
     for month in MONTHS:
         ts = committed[f"logs/month={month}/part-0.parquet"]["ts"].to_numpy()
         assert (ts.astype("datetime64[M]") == np.datetime64(month)).all()
     assert len(rows["ts"]) == ROWS_PER_DAY * 7 * WEEKS == 45_500
     assert committed["labels/labels.parquet"].num_rows == 41_807
-    ids = pa.concat_tables(committed[f"logs/month={m}/part-0.parquet"] for m in MONTHS)["prediction_id"]
+    ids = pa.concat_tables(committed[f"logs/month={m}/part-0.parquet"] for m in MONTHS)[
+        "prediction_id"
+    ]
     assert pc.count_distinct(ids).as_py() == 45_500
     assert rows["ts"].min() >= np.datetime64(START) and rows["ts"].max() < np.datetime64(AS_OF)
-    assert set(rows["region"]) == set(REGIONS) == set(committed["regions.csv"]["region"].to_pylist())
+    assert (
+        set(rows["region"]) == set(REGIONS) == set(committed["regions.csv"]["region"].to_pylist())
+    )
 
 
 def test_a_few_rows_are_deliberately_dirty(rows):
@@ -141,14 +184,18 @@ def test_a_few_rows_are_deliberately_dirty(rows):
 
 
 def test_v2_ramps_from_week_9_to_all_traffic_by_week_13(rows):
-    share = np.array([(rows["version"][rows["week"] == w] == "v2").mean() for w in range(1, WEEKS + 1)])
+    share = np.array(
+        [(rows["version"][rows["week"] == w] == "v2").mean() for w in range(1, WEEKS + 1)]
+    )
     assert (share[:8] == 0).all() and (share[12:] == 1).all()
-    assert (0 < share[8:12]).all() and (share[8:12] < 1).all() and (np.diff(share[8:12]) > 0).all()
+    assert (share[8:12] > 0).all() and (share[8:12] < 1).all() and (np.diff(share[8:12]) > 0).all()
 
 
 def test_v2_is_over_confident_at_similar_accuracy(rows):
     both = (rows["week"] >= 9) & (rows["week"] <= 12)
-    (c1, ok1, ce1), (c2, ok2, ce2) = (scored(rows, both & (rows["version"] == v)) for v in ("v1", "v2"))
+    (c1, ok1, ce1), (c2, ok2, ce2) = (
+        scored(rows, both & (rows["version"] == v)) for v in ("v1", "v2")
+    )
     assert 0.7 < ok1.mean() < 0.8 and abs(ok1.mean() - ok2.mean()) < 0.03
     assert c2.mean() > c1.mean() + 0.1
     assert ece(c1, ok1) < 0.03 and ece(c2, ok2) > 0.1
@@ -211,6 +258,9 @@ def test_a_shorter_run_removes_month_files_of_a_longer_one(tmp_path):
 def test_module_entry_point_passes_its_options_to_generate(tmp_path, capsys):
     main([str(tmp_path), "--rows-per-day", "3", "--weeks", "1", "--seed", "11"])
     assert pq.read_table(tmp_path / "logs/month=2026-01/part-0.parquet").equals(
-        pq.read_table(demo.generate(tmp_path / "api", rows_per_day=3, weeks=1, seed=11)["logs"]
-                      / "month=2026-01/part-0.parquet"))
+        pq.read_table(
+            demo.generate(tmp_path / "api", rows_per_day=3, weeks=1, seed=11)["logs"]
+            / "month=2026-01/part-0.parquet"
+        )
+    )
     assert "labels:" in capsys.readouterr().out

@@ -13,8 +13,8 @@ import pyarrow.parquet as pq
 import pytest
 
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.templates import render_query, run_query
-from dbmetrics.templates.engine import BATCH_ROWS
+from dbmetrics.queries import render_query, run_query
+from dbmetrics.queries.engine import BATCH_ROWS
 
 
 def awkward_log(path, n=2 * BATCH_ROWS + 123, seed=5):
@@ -35,22 +35,34 @@ def awkward_log(path, n=2 * BATCH_ROWS + 123, seed=5):
             labels[i] = None
         else:
             labels[i] = 9
-    pq.write_table(pa.table({
-        "ts": pa.array([dt.datetime(2026, 1, 5) + dt.timedelta(minutes=int(m))
-                        for m in rng.integers(0, 60 * 24 * 28, n)], pa.timestamp("us")),
-        "model_version": rng.choice(["v1", "v2"], n),
-        "region": rng.choice(["a", "b", "c"], n),
-        "logits": pa.array(logits, pa.list_(pa.float32())),
-        "label": pa.array(labels, pa.int64()),
-    }), path)
+    pq.write_table(
+        pa.table(
+            {
+                "ts": pa.array(
+                    [
+                        dt.datetime(2026, 1, 5) + dt.timedelta(minutes=int(m))
+                        for m in rng.integers(0, 60 * 24 * 28, n)
+                    ],
+                    pa.timestamp("us"),
+                ),
+                "model_version": rng.choice(["v1", "v2"], n),
+                "region": rng.choice(["a", "b", "c"], n),
+                "logits": pa.array(logits, pa.list_(pa.float32())),
+                "label": pa.array(labels, pa.int64()),
+            }
+        ),
+        path,
+    )
     return str(path)
 
 
 @pytest.mark.parametrize("query", ["rollup", "calibration", "drift"])
 def test_the_engine_equals_the_udf_route(con, tmp_path, query, same_table):
-    params = {"logs": awkward_log(tmp_path / "log.parquet"), "segment_cols": "region",
-              "min_rows": "50"} if query == "drift" else {
-        "logs": awkward_log(tmp_path / "log.parquet"), "segment_cols": "region"}
+    params = (
+        {"logs": awkward_log(tmp_path / "log.parquet"), "segment_cols": "region", "min_rows": "50"}
+        if query == "drift"
+        else {"logs": awkward_log(tmp_path / "log.parquet"), "segment_cols": "region"}
+    )
     engine = run_query(con, query, params)
     sql, bound = render_query(con, query, params)  # the per-row UDF SQL
     same_table(con.sql(sql, params=bound).to_arrow_table(), engine)

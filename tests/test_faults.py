@@ -26,8 +26,13 @@ BIG = "SELECT range AS i, range * 0.5 AS x, 'row ' || range AS s FROM range({n})
 def start(*args, cwd):
     env = {k: v for k, v in os.environ.items() if not k.startswith("DBMETRICS_")}
     env["PYTHONPATH"] = ROOT
-    return subprocess.Popen([sys.executable, "-m", "dbmetrics.cli", "-q", *args], cwd=cwd,
-                            env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    return subprocess.Popen(
+        [sys.executable, "-m", "dbmetrics.cli", "-q", *args],
+        cwd=cwd,
+        env=env,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+    )
 
 
 def kill_when(proc, seen, timeout=60.0):
@@ -73,8 +78,16 @@ def test_killed_while_writing_leaves_the_previous_output(tmp_path, fmt):
 def test_killed_check_keeps_the_previous_report(tmp_path):
     out = tmp_path / "health.json"
     out.write_text('{"previous": true}\n')
-    proc = start("check", "--set", f"logs={DEMO / 'logs'}", "--set", "label_col=",
-                 "-o", out.name, cwd=tmp_path)
+    proc = start(
+        "check",
+        "--set",
+        f"logs={DEMO / 'logs'}",
+        "--set",
+        "label_col=",
+        "-o",
+        out.name,
+        cwd=tmp_path,
+    )
     time.sleep(0.3)  # inside the scan: nothing of the report is written yet
     proc.send_signal(signal.SIGKILL)
     proc.wait()
@@ -84,27 +97,54 @@ def test_killed_check_keeps_the_previous_report(tmp_path):
 
 def store_state(store: Path) -> tuple:
     manifest = json.loads((store / "manifest.json").read_text())
-    listed = {entry[kind] for entry in manifest["days"].values() for kind in ("state", "class_state")}
+    listed = {
+        entry[kind] for entry in manifest["days"].values() for kind in ("state", "class_state")
+    }
     return manifest, listed
 
 
 def rollup_from(store: Path, cwd: Path) -> list:
     """The rollup of the store, rows of values (floats rounded: DuckDB's parallel sums vary
     in the last bits from run to run)."""
-    done = subprocess.run([sys.executable, "-m", "dbmetrics.cli", "run", "rollup", "--set",
-                           f"partials={store}", "-f", "json"], cwd=cwd, capture_output=True,
-                          env={**os.environ, "PYTHONPATH": ROOT}, timeout=120)
+    done = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "dbmetrics.cli",
+            "run",
+            "rollup",
+            "--set",
+            f"partials={store}",
+            "-f",
+            "json",
+        ],
+        cwd=cwd,
+        capture_output=True,
+        env={**os.environ, "PYTHONPATH": ROOT},
+        timeout=120,
+    )
     assert done.returncode == 0, done.stderr
-    return [{k: round(v, 10) if isinstance(v, float) else v for k, v in row.items()}
-            for row in json.loads(done.stdout)]
+    return [
+        {k: round(v, 10) if isinstance(v, float) else v for k, v in row.items()}
+        for row in json.loads(done.stdout)
+    ]
 
 
 @pytest.mark.slow
 def test_killed_partials_update_leaves_the_previous_store(tmp_path):
     store = tmp_path / "store"
-    update = ["partials", "update", "--store", str(store), "--set", f"logs={DEMO / 'logs'}",
-              "--set", f"labels={DEMO / 'labels' / 'labels.parquet'}",
-              "--set", "id_col=prediction_id"]
+    update = [
+        "partials",
+        "update",
+        "--store",
+        str(store),
+        "--set",
+        f"logs={DEMO / 'logs'}",
+        "--set",
+        f"labels={DEMO / 'labels' / 'labels.parquet'}",
+        "--set",
+        "id_col=prediction_id",
+    ]
     assert start(*update, cwd=tmp_path).wait(120) == 0
     manifest, listed = store_state(store)
     before = rollup_from(store, tmp_path)
@@ -119,8 +159,9 @@ def test_killed_partials_update_leaves_the_previous_store(tmp_path):
     assert start(*update, cwd=tmp_path).wait(120) == 0
     previous = listed
     manifest, listed = store_state(store)
-    on_disk = {f"{kind}/{p.name}" for kind in ("state", "class_state")
-               for p in (store / kind).iterdir()}
+    on_disk = {
+        f"{kind}/{p.name}" for kind in ("state", "class_state") for p in (store / kind).iterdir()
+    }
     assert on_disk == listed | previous  # the killed run's stray files are gone; the
     # previous generation stays one update longer for queries that read its manifest
     assert rollup_from(store, tmp_path) == before

@@ -1,4 +1,4 @@
-"""The partials store: per-day additive states that the templates roll up instead of logs.
+"""The partials store: per-day additive states that the saved queries roll up instead of logs.
 
 Specification: rolled up from a store, every template returns the same table as the direct
 computation (up to float rounding); an update reads only new and recently relabelled days;
@@ -17,7 +17,7 @@ from dbmetrics import partials
 from dbmetrics.demo import generate
 from dbmetrics.errors import DbmetricsError
 from dbmetrics.partials import store as store_module
-from dbmetrics.templates import run_query
+from dbmetrics.queries import run_query
 
 
 @pytest.fixture(scope="module")
@@ -28,18 +28,27 @@ def demo(tmp_path_factory):
 
 
 @pytest.mark.parametrize("query", ["rollup", "calibration", "drift"])
-@pytest.mark.parametrize("stored, asked", [("region,channel", "region,channel"),
-                                           ("region,channel", "region"),
-                                           ("region,channel", ""), ("", "")])
-def test_templates_from_a_store_equal_the_direct_computation(same_table, con, demo, tmp_path, query,
-                                                             stored, asked):
+@pytest.mark.parametrize(
+    "stored, asked",
+    [
+        ("region,channel", "region,channel"),
+        ("region,channel", "region"),
+        ("region,channel", ""),
+        ("", ""),
+    ],
+)
+def test_saved_queries_from_a_store_equal_the_direct_computation(
+    same_table, con, demo, tmp_path, query, stored, asked
+):
     partials.update(con, {**demo, "segment_cols": stored}, tmp_path / "store")
     direct = run_query(con, query, {**demo, "segment_cols": asked})
     rolled = run_query(con, query, {"partials": str(tmp_path / "store"), "segment_cols": asked})
     same_table(direct, rolled)
 
 
-def test_an_update_recomputes_only_recent_days_and_never_double_counts(same_table, con, demo, tmp_path):
+def test_an_update_recomputes_only_recent_days_and_never_double_counts(
+    same_table, con, demo, tmp_path
+):
     store = tmp_path / "store"
     first = partials.update(con, demo, store)
     assert first["days_written"] == 21 and first["recomputed_from"] is None
@@ -54,25 +63,37 @@ def test_an_update_recomputes_only_recent_days_and_never_double_counts(same_tabl
 def test_new_days_and_late_labels_are_picked_up(same_table, con, tmp_path):
     """A log that grows by a week and whose labels arrive late, as in production."""
     full = generate(tmp_path / "full", rows_per_day=40, weeks=2)
-    logs = pq.read_table(full["logs"]).drop_columns(["month"]) if "month" in pq.read_table(
-        full["logs"]).column_names else pq.read_table(full["logs"])
+    logs = (
+        pq.read_table(full["logs"]).drop_columns(["month"])
+        if "month" in pq.read_table(full["logs"]).column_names
+        else pq.read_table(full["logs"])
+    )
     labels = pq.read_table(full["labels"])
     cut = dt.datetime(2026, 1, 12)
     pq.write_table(logs.filter(pa.compute.less(logs["ts"], cut)), tmp_path / "week1.parquet")
     early = labels.filter(pa.compute.less(labels["labelled_at"], cut))
     pq.write_table(early, tmp_path / "labels.parquet")
-    params = {"logs": str(tmp_path / "week*.parquet"), "labels": str(tmp_path / "labels.parquet"),
-              "id_col": "prediction_id"}
+    params = {
+        "logs": str(tmp_path / "week*.parquet"),
+        "labels": str(tmp_path / "labels.parquet"),
+        "id_col": "prediction_id",
+    }
     partials.update(con, params, tmp_path / "store")
-    pq.write_table(logs.filter(pa.compute.greater_equal(logs["ts"], cut)), tmp_path / "week2.parquet")
+    pq.write_table(
+        logs.filter(pa.compute.greater_equal(logs["ts"], cut)), tmp_path / "week2.parquet"
+    )
     pq.write_table(labels, tmp_path / "labels.parquet")
     summary = partials.update(con, params, tmp_path / "store", relabel_days=10)
     assert summary["recomputed_from"] == "2026-01-02"
-    same_table(run_query(con, "rollup", params),
-               run_query(con, "rollup", {"partials": str(tmp_path / "store")}))
+    same_table(
+        run_query(con, "rollup", params),
+        run_query(con, "rollup", {"partials": str(tmp_path / "store")}),
+    )
 
 
-def test_an_interrupted_update_leaves_the_previous_store(same_table, con, demo, tmp_path, monkeypatch):
+def test_an_interrupted_update_leaves_the_previous_store(
+    same_table, con, demo, tmp_path, monkeypatch
+):
     store = tmp_path / "store"
     partials.update(con, demo, store)
     before = run_query(con, "rollup", {"partials": str(store)})
@@ -92,9 +113,13 @@ def test_an_interrupted_update_leaves_the_previous_store(same_table, con, demo, 
     monkeypatch.undo()
     assert (store / "manifest.json").read_text() == manifest
     same_table(before, run_query(con, "rollup", {"partials": str(store)}))
+
     def listed():
-        return {e[k] for e in json.loads((store / "manifest.json").read_text())["days"].values()
-                for k in ("state", "class_state")}
+        return {
+            e[k]
+            for e in json.loads((store / "manifest.json").read_text())["days"].values()
+            for k in ("state", "class_state")
+        }
 
     kept = listed()
     partials.update(con, demo, store)  # the next update removes the stray files, and keeps
@@ -134,8 +159,12 @@ def test_the_cli_builds_shows_and_rolls_up_a_store(demo, tmp_path):
     store = str(tmp_path / "store")
     sets = [a for k, v in demo.items() for a in ("--set", f"{k}={v}")]
     runner = CliRunner()
-    built = runner.invoke(cli, ["partials", "update", "--store", store, *sets, "--format", "json"]
-                          if False else ["partials", "update", "--store", store, *sets])
+    built = runner.invoke(
+        cli,
+        ["partials", "update", "--store", store, *sets, "--format", "json"]
+        if False
+        else ["partials", "update", "--store", store, *sets],
+    )
     assert built.exit_code == 0, built.output
     shown = runner.invoke(cli, ["partials", "show", "--store", store])
     assert shown.exit_code == 0 and "2026-01-25" in shown.output

@@ -16,16 +16,24 @@ from click.testing import CliRunner
 
 from dbmetrics import plots
 from dbmetrics.cli.main import cli
-from dbmetrics.templates import run_query
+from dbmetrics.queries import run_query
 
 DEMO = Path(__file__).parent.parent / "demo_parquet"
-LABELLED = ["--set", f"logs={DEMO / 'logs'}", "--set", f"labels={DEMO / 'labels' / 'labels.parquet'}",
-            "--set", "id_col=prediction_id"]
+LABELLED = [
+    "--set",
+    f"logs={DEMO / 'logs'}",
+    "--set",
+    f"labels={DEMO / 'labels' / 'labels.parquet'}",
+    "--set",
+    "id_col=prediction_id",
+]
 SIZE = (1600, 1000)
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 MISSING = "plotting needs matplotlib: pip install 'dbmetrics[plot]'"
 
-needs_matplotlib = pytest.mark.skipif(find_spec("matplotlib") is None, reason="needs the 'plot' extra")
+needs_matplotlib = pytest.mark.skipif(
+    find_spec("matplotlib") is None, reason="needs the 'plot' extra"
+)
 
 
 def png_size(path: Path) -> tuple[int, int]:
@@ -34,7 +42,7 @@ def png_size(path: Path) -> tuple[int, int]:
     assert data[:8] == PNG_SIGNATURE
     length, kind = struct.unpack(">I4s", data[8:16])
     assert (length, kind) == (13, b"IHDR")
-    body, crc = data[16:16 + length], struct.unpack(">I", data[16 + length:20 + length])[0]
+    body, crc = data[16 : 16 + length], struct.unpack(">I", data[16 + length : 20 + length])[0]
     assert zlib.crc32(kind + body) == crc
     assert data[-12:] == b"\x00\x00\x00\x00IEND\xaeB`\x82"
     return struct.unpack(">II", body[:8])
@@ -51,6 +59,7 @@ def invoke(tmp_path, monkeypatch):
 
 # --- the commands write PNGs of the expected size -------------------------------------------
 
+
 @needs_matplotlib
 def test_reliability_writes_a_1600_by_1000_png(invoke, tmp_path):
     result = invoke("plot", "reliability", *LABELLED, "--output", "reliability.png")
@@ -59,11 +68,33 @@ def test_reliability_writes_a_1600_by_1000_png(invoke, tmp_path):
 
 
 @needs_matplotlib
-@pytest.mark.parametrize("args", [
-    ["--query", "rollup", "--metric", "cross_entropy"],
-    ["--query", "rollup", "--metric", "accuracy", "--by", "channel", "--only", "model_version=v2"],
-    ["--query", "drift", "--metric", "confidence_psi", "--by", "region", "--start", "2026-03-02"],
-], ids=["ce-by-version", "accuracy-by-channel", "drift-by-region"])
+@pytest.mark.parametrize(
+    "args",
+    [
+        ["--query", "rollup", "--metric", "cross_entropy"],
+        [
+            "--query",
+            "rollup",
+            "--metric",
+            "accuracy",
+            "--by",
+            "channel",
+            "--only",
+            "model_version=v2",
+        ],
+        [
+            "--query",
+            "drift",
+            "--metric",
+            "confidence_psi",
+            "--by",
+            "region",
+            "--start",
+            "2026-03-02",
+        ],
+    ],
+    ids=["ce-by-version", "accuracy-by-channel", "drift-by-region"],
+)
 def test_trend_writes_a_1600_by_1000_png(invoke, tmp_path, args):
     result = invoke("plot", "trend", *args, *LABELLED, "--output", "trend.png")
     assert result.exit_code == 0, result.output
@@ -74,7 +105,8 @@ def test_trend_writes_a_1600_by_1000_png(invoke, tmp_path, args):
 def test_parameters_come_from_the_project_file_as_for_run(invoke, tmp_path):
     (tmp_path / "dbmetrics.toml").write_text(
         f'[params]\nlogs = "{DEMO / "logs"}"\nlabels = "{DEMO / "labels" / "labels.parquet"}"\n'
-        'id_col = "prediction_id"\n[queries.calibration]\nbins = 10\n')
+        'id_col = "prediction_id"\n[queries.calibration]\nbins = 10\n'
+    )
     result = invoke("plot", "reliability", "--only", "model_version=v1", "-o", "v1.png")
     assert result.exit_code == 0, result.output
     assert png_size(tmp_path / "v1.png") == SIZE
@@ -90,7 +122,9 @@ def _plot_examples():
 
 @needs_matplotlib
 @pytest.mark.parametrize("name, example", list(_plot_examples()))
-def test_every_plot_help_example_runs_as_written_and_writes_its_png(invoke, tmp_path, name, example):
+def test_every_plot_help_example_runs_as_written_and_writes_its_png(
+    invoke, tmp_path, name, example
+):
     (tmp_path / "demo_parquet").symlink_to(DEMO, target_is_directory=True)
     words = shlex.split(example)
     result = invoke(*words[1:])
@@ -99,6 +133,7 @@ def test_every_plot_help_example_runs_as_written_and_writes_its_png(invoke, tmp_
 
 
 # --- errors are one line, and leave the old file alone --------------------------------------
+
 
 def test_without_matplotlib_the_error_is_the_install_hint(invoke, tmp_path, monkeypatch):
     monkeypatch.setitem(sys.modules, "matplotlib", None)
@@ -129,23 +164,34 @@ def test_the_output_must_be_a_png_path(invoke):
 
 # --- pooling over periods adds counts and sums ----------------------------------------------
 
+
 def calibration_rows(rows):
     """A calibration-shaped table from (period, version, bin, rows, mean_confidence, accuracy)."""
     columns = list(zip(*rows))
     bins = 10
-    return pa.table({
-        "period": pa.array(columns[0], pa.date32()), "model_version": columns[1],
-        "bin": pa.array(columns[2], pa.int32()),
-        "bin_lower": [b / bins for b in columns[2]], "bin_upper": [(b + 1) / bins for b in columns[2]],
-        "rows": pa.array(columns[3], pa.int64()), "mean_confidence": columns[4], "accuracy": columns[5],
-    })
+    return pa.table(
+        {
+            "period": pa.array(columns[0], pa.date32()),
+            "model_version": columns[1],
+            "bin": pa.array(columns[2], pa.int32()),
+            "bin_lower": [b / bins for b in columns[2]],
+            "bin_upper": [(b + 1) / bins for b in columns[2]],
+            "rows": pa.array(columns[3], pa.int64()),
+            "mean_confidence": columns[4],
+            "accuracy": columns[5],
+        }
+    )
 
 
 def test_pooling_weights_each_period_by_its_rows_not_equally():
     week1, week2 = dt.date(2026, 1, 5), dt.date(2026, 1, 12)
-    table = calibration_rows([(week1, "v1", 5, 1, 0.50, 0.0),
-                              (week2, "v1", 5, 3, 0.70, 1.0),
-                              (week2, "v1", 8, 4, 0.85, 0.5)])
+    table = calibration_rows(
+        [
+            (week1, "v1", 5, 1, 0.50, 0.0),
+            (week2, "v1", 5, 3, 0.70, 1.0),
+            (week2, "v1", 8, 4, 0.85, 0.5),
+        ]
+    )
     [v1] = plots.pool_bins(table, "model_version")
     assert v1.rows.tolist() == [4, 4]
     assert v1.accuracy.tolist() == pytest.approx([0.75, 0.5])  # 3 of 4 correct, not (0 + 1) / 2
@@ -157,33 +203,46 @@ def test_weeks_pooled_equal_the_query_run_over_the_whole_month(con):
     rng = np.random.default_rng(3)
     n = 3000
     days = rng.integers(0, 30, n)  # June 2026: Monday 1st to Tuesday 30th, five weeks
-    logs = pa.table({  # noqa: F841 (read by name through DuckDB's replacement scan)
-        "ts": pa.array([dt.datetime(2026, 6, 1) + dt.timedelta(days=int(d), hours=9) for d in days]),
-        "model_version": rng.choice(["v1", "v2"], n).tolist(),
-        "logits": pa.array((2 * rng.standard_normal((n, 4))).tolist(), pa.list_(pa.float32())),
-        "label": pa.array(rng.integers(0, 4, n), pa.int64()),
-    })
+    logs = pa.table(  # noqa: F841 (read by name through DuckDB's replacement scan)
+        {
+            "ts": pa.array(
+                [dt.datetime(2026, 6, 1) + dt.timedelta(days=int(d), hours=9) for d in days]
+            ),
+            "model_version": rng.choice(["v1", "v2"], n).tolist(),
+            "logits": pa.array((2 * rng.standard_normal((n, 4))).tolist(), pa.list_(pa.float32())),
+            "label": pa.array(rng.integers(0, 4, n), pa.int64()),
+        }
+    )
     con.execute("CREATE TABLE logs AS SELECT * FROM logs")
     weekly = run_query(con, "calibration", {"logs": "logs", "grain": "week", "bins": "10"})
     monthly = run_query(con, "calibration", {"logs": "logs", "grain": "month", "bins": "10"})
-    assert len(set(weekly["period"].to_pylist())) == 5 and len(set(monthly["period"].to_pylist())) == 1
+    assert (
+        len(set(weekly["period"].to_pylist())) == 5 and len(set(monthly["period"].to_pylist())) == 1
+    )
     for pooled in plots.pool_bins(weekly, "model_version"):
         month = monthly.filter(pa.compute.equal(monthly["model_version"], pooled.group))
         assert pooled.rows.tolist() == month["rows"].to_pylist()
         assert pooled.accuracy == pytest.approx(month["accuracy"].to_numpy(), rel=1e-12)
-        assert pooled.mean_confidence == pytest.approx(month["mean_confidence"].to_numpy(), rel=1e-12)
+        assert pooled.mean_confidence == pytest.approx(
+            month["mean_confidence"].to_numpy(), rel=1e-12
+        )
         assert pooled.ece == pytest.approx(month["ece"][0].as_py(), rel=1e-12)
 
 
 def test_rows_are_kept_by_value_and_period_range():
-    table = calibration_rows([(dt.date(2026, 1, 5), "v1", 1, 1, 0.2, 0.0),
-                              (dt.date(2026, 1, 12), "v2", 1, 1, 0.2, 0.0),
-                              (dt.date(2026, 1, 19), "v2", 1, 1, 0.2, 0.0)])
+    table = calibration_rows(
+        [
+            (dt.date(2026, 1, 5), "v1", 1, 1, 0.2, 0.0),
+            (dt.date(2026, 1, 12), "v2", 1, 1, 0.2, 0.0),
+            (dt.date(2026, 1, 19), "v2", 1, 1, 0.2, 0.0),
+        ]
+    )
     kept = plots.keep_rows(table, {"model_version": "v2"}, end=dt.date(2026, 1, 12))
     assert kept["period"].to_pylist() == [dt.date(2026, 1, 12)]
 
 
 # --- what the pictures show -----------------------------------------------------------------
+
 
 def drift_like(versions=("v1",), regions=("alpine", "north")):
     """Six weekly periods per version x region; the first two in the reference, one flagged row."""
@@ -191,18 +250,30 @@ def drift_like(versions=("v1",), regions=("alpine", "north")):
     for version in versions:
         for region in regions:
             for week in range(6):
-                rows.append({"period": dt.date(2026, 1, 5) + dt.timedelta(weeks=week), "model_version": version,
-                             "region": region, "in_reference": week < 2, "prediction_js": 0.001 * (week + 1),
-                             "cross_entropy": 0.7, "cross_entropy_se": 0.01 * (week + 1),
-                             "flagged": region == "alpine" and week == 5})
+                rows.append(
+                    {
+                        "period": dt.date(2026, 1, 5) + dt.timedelta(weeks=week),
+                        "model_version": version,
+                        "region": region,
+                        "in_reference": week < 2,
+                        "prediction_js": 0.001 * (week + 1),
+                        "cross_entropy": 0.7,
+                        "cross_entropy_se": 0.01 * (week + 1),
+                        "flagged": region == "alpine" and week == 5,
+                    }
+                )
     return pa.Table.from_pylist(rows)
 
 
 @needs_matplotlib
 def test_reliability_legend_gives_each_versions_pooled_ece_and_rows():
-    table = calibration_rows([(dt.date(2026, 1, 5), "v1", 5, 1, 0.50, 0.0),
-                              (dt.date(2026, 1, 12), "v1", 5, 3, 0.70, 1.0),
-                              (dt.date(2026, 1, 12), "v2", 9, 2, 0.95, 0.5)])
+    table = calibration_rows(
+        [
+            (dt.date(2026, 1, 5), "v1", 5, 1, 0.50, 0.0),
+            (dt.date(2026, 1, 12), "v1", 5, 3, 0.70, 1.0),
+            (dt.date(2026, 1, 12), "v2", 9, 2, 0.95, 0.5),
+        ]
+    )
     figure = plots.reliability_figure(table, "model_version")
     legend = [t.get_text() for t in figure.axes[0].get_legend().get_texts()]
     assert legend == ["perfectly calibrated", "v1: ECE 0.100, 4 rows", "v2: ECE 0.450, 2 rows"]
@@ -213,7 +284,9 @@ def test_reliability_legend_gives_each_versions_pooled_ece_and_rows():
 def test_trend_rings_exactly_the_flagged_rows_and_shades_the_reference():
     from dbmetrics.plots.trend import FLAGGED, REFERENCE
 
-    figure = plots.trend_figure(drift_like(), "prediction_js", "region", ("model_version", "region"))
+    figure = plots.trend_figure(
+        drift_like(), "prediction_js", "region", ("model_version", "region")
+    )
     ax = figure.axes[0]
     [ring] = [c for c in ax.collections if c.get_label() == FLAGGED]
     assert ring.get_offsets().tolist() == [[ax.convert_xunits(np.datetime64("2026-02-09")), 0.006]]
@@ -243,7 +316,9 @@ def test_every_line_differs_in_marker_or_line_style_so_it_reads_in_greyscale():
 
 @needs_matplotlib
 def test_png_bytes_have_the_fixed_size_whatever_the_content(tmp_path):
-    for figure in (plots.trend_figure(drift_like(), "prediction_js", "region", ("model_version", "region")),
-                   plots.trend_figure(drift_like(), "cross_entropy", "model_version", title="x" * 200)):
+    for figure in (
+        plots.trend_figure(drift_like(), "prediction_js", "region", ("model_version", "region")),
+        plots.trend_figure(drift_like(), "cross_entropy", "model_version", title="x" * 200),
+    ):
         (tmp_path / "f.png").write_bytes(plots.png_bytes(figure))
         assert png_size(tmp_path / "f.png") == (plots.WIDTH, plots.HEIGHT) == SIZE

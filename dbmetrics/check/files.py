@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import duckdb
 
-from dbmetrics.templates.schema import Source, first_line
+from dbmetrics.queries.schema import Source, first_line
 
 MESSAGE = 200  # characters of DuckDB's message kept
 
@@ -14,6 +14,7 @@ MESSAGE = 200  # characters of DuckDB's message kept
 @dataclass(frozen=True)
 class Drift:
     """A column whose presence or type is not the same in every file."""
+
     column: str
     role: str | None
     detail: str
@@ -21,21 +22,27 @@ class Drift:
 
 
 def is_parquet(source: Source) -> bool:
-    """Files read by the templates' read_parquet (not a table, view or CSV)."""
+    """Files read by the saved queries' read_parquet (not a table, view or CSV)."""
     return bool(source.bound) and source.sql.startswith("read_parquet(")
 
 
 def file_list(con, source: Source) -> list:
     param = next(iter(source.bound))
-    return [row[0] for row in con.execute(f"SELECT file FROM glob(${param}) ORDER BY file",
-                                          source.bound).fetchall()]
+    return [
+        row[0]
+        for row in con.execute(
+            f"SELECT file FROM glob(${param}) ORDER BY file", source.bound
+        ).fetchall()
+    ]
 
 
 def schemas(con, source: Source) -> dict:
     """file -> {column: DuckDB type} for the top-level columns of each file."""
     param = next(iter(source.bound))
-    rows = con.execute(f"SELECT file_name, name, num_children, duckdb_type "
-                       f"FROM parquet_schema(${param})", source.bound).fetchall()
+    rows = con.execute(
+        f"SELECT file_name, name, num_children, duckdb_type FROM parquet_schema(${param})",
+        source.bound,
+    ).fetchall()
     by_file = defaultdict(list)
     for file, name, children, kind in rows:
         by_file[file].append((name, children or 0, kind))
@@ -44,6 +51,7 @@ def schemas(con, source: Source) -> dict:
 
 def top_level(nodes: list) -> dict:
     """The root's children from a depth-first (name, num_children, type) list."""
+
     def skip(pos):  # the position after the subtree at pos
         end = pos + 1
         for _ in range(nodes[pos][1]):
@@ -71,13 +79,25 @@ def drift(con, source: Source, roles: dict) -> list:
         if len(per_file) and len(absent) == len(per_file):
             continue  # not a file column (a hive partition key)
         if absent:
-            found.append(Drift(column, role, f"absent from {len(absent)} of {len(per_file)} "
-                               f"files (read as NULL), e.g. {absent[0]}", role is not None))
+            found.append(
+                Drift(
+                    column,
+                    role,
+                    f"absent from {len(absent)} of {len(per_file)} "
+                    f"files (read as NULL), e.g. {absent[0]}",
+                    role is not None,
+                )
+            )
         if len(kinds) > 1:
-            seen = ", ".join(f"{kind} in {len(files)} file{'s' * (len(files) > 1)} "
-                             f"(e.g. {files[0]})" for kind, files in sorted(kinds.items()))
-            found.append(Drift(column, role, f"types differ: {seen}; read as "
-                               f"{source.columns[column]}", False))
+            seen = ", ".join(
+                f"{kind} in {len(files)} file{'s' * (len(files) > 1)} (e.g. {files[0]})"
+                for kind, files in sorted(kinds.items())
+            )
+            found.append(
+                Drift(
+                    column, role, f"types differ: {seen}; read as {source.columns[column]}", False
+                )
+            )
     return found
 
 

@@ -1,18 +1,26 @@
-"""The check's parameters: the templates' column map (declared as in rollup) plus a few of
-its own, checked with the templates' own code (defaults, values, sources, column map)."""
+"""The check's parameters: the saved queries' column roles (declared as in rollup) plus a few of
+its own, checked with the saved queries' own code (defaults, values, sources, column roles)."""
 
 from dataclasses import dataclass
 from pathlib import Path
 
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.templates import get_query
-from dbmetrics.templates.header import QueryInfo, parse_param
-from dbmetrics.templates.prelude import NUMERIC_TYPES, ColumnMap, column_map
-from dbmetrics.templates.schema import Source, open_source
-from dbmetrics.templates.values import convert, with_defaults
+from dbmetrics.queries import get_query
+from dbmetrics.queries.header import QueryInfo, parse_param
+from dbmetrics.queries.roles import NUMERIC_TYPES, ColumnRoles, column_roles
+from dbmetrics.queries.schema import Source, open_source
+from dbmetrics.queries.values import convert, with_defaults
 
-SHARED = ("time_col", "scores_col", "scores_kind", "label_col", "version_col",
-          "grain", "labels", "classes")
+SHARED = (
+    "time_col",
+    "scores_col",
+    "scores_kind",
+    "label_col",
+    "version_col",
+    "grain",
+    "labels",
+    "classes",
+)
 OWN = (
     "param logs (source, required): prediction log: a Parquet file, glob or "
     "(hive-partitioned) folder, or a table/view name",
@@ -35,44 +43,61 @@ def info() -> QueryInfo:
     here = Path(__file__)
     own = [parse_param(text, here) for text in OWN]
     params = own[:1] + [rollup.param(n) for n in SHARED] + own[1:]
-    return QueryInfo("check", "Health report of a prediction log", here, tuple(params),
-                     "dbmetrics check --set logs=demo_parquet/logs", "built-in")
+    return QueryInfo(
+        "check",
+        "Health report of a prediction log",
+        here,
+        tuple(params),
+        "dbmetrics check --set logs=demo_parquet/logs",
+        "built-in",
+    )
 
 
 @dataclass(frozen=True)
 class Resolved:
-    """Checked parameters: texts as given, bound values, the column map, extra columns."""
+    """Checked parameters: texts as given, bound values, the column roles, extra columns."""
+
     texts: dict
     values: dict
-    cmap: ColumnMap
+    roles: ColumnRoles
     id_col: str | None
     target_col: str | None
 
     @property
     def logs(self) -> Source:
-        return self.cmap.logs
+        return self.roles.logs
 
 
 def resolve(con, params: dict) -> Resolved:
-    """Defaults, value checks, sources and the column map, as the templates do them."""
+    """Defaults, value checks, sources and the column roles, as the saved queries do them."""
     query = info()
     texts = with_defaults(query, params)
     for p in query.params:  # empty text means "none": only label_col may be none
         if texts[p.name] is None and p.default is not None and p.name != "label_col":
-            raise DbmetricsError(f"parameter `{p.name}` needs a value (its default is "
-                                 f"{p.default}); leave it out to use the default")
-    values = {p.name: convert(p, texts[p.name]) for p in query.params
-              if p.kind not in ("source", "column", "columns")}
-    sources = {name: open_source(con, name, texts[name]) for name in ("logs", "labels")
-               if texts[name] is not None}
-    cmap = column_map({**texts, "segment_cols": None, "bins": None}, sources, RESERVED)
+            raise DbmetricsError(
+                f"parameter `{p.name}` needs a value (its default is "
+                f"{p.default}); leave it out to use the default"
+            )
+    values = {
+        p.name: convert(p, texts[p.name])
+        for p in query.params
+        if p.kind not in ("source", "column", "columns")
+    }
+    sources = {
+        name: open_source(con, name, texts[name])
+        for name in ("logs", "labels")
+        if texts[name] is not None
+    }
+    roles = column_roles({**texts, "segment_cols": None, "bins": None}, sources, RESERVED)
     logs = sources["logs"]
     id_col = logs.column(texts["id_col"], "id_col") if texts["id_col"] else None
     target = logs.column(texts["target_col"], "target_col") if texts["target_col"] else None
     if target is not None and not is_number_list(logs.type_of(target)):
-        raise DbmetricsError(f"target_col: column `{target}` is {logs.type_of(target)}; "
-                             "expected a list of numbers (FLOAT[] or DOUBLE[])")
-    return Resolved(texts, values, cmap, id_col, target)
+        raise DbmetricsError(
+            f"target_col: column `{target}` is {logs.type_of(target)}; "
+            "expected a list of numbers (FLOAT[] or DOUBLE[])"
+        )
+    return Resolved(texts, values, roles, id_col, target)
 
 
 def is_number_list(kind: str) -> bool:

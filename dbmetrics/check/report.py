@@ -12,19 +12,18 @@ MEANINGS = {
     "missing_scores": "scores NULL or an empty list",
     "null_in_scores": "a NULL inside the scores list",
     "nan_scores": "a NaN score",
-    "infinite_scores": "a +inf logit or every class -inf (logits); an infinite probability "
-                       "(probs)",
+    "infinite_scores": "a +inf logit or every class -inf (logits); an infinite probability (probs)",
     "negative_probs": "a negative probability",
     "probs_not_summing_to_1": "probabilities do not sum to 1 within the tolerance",
     "k_differs": "scores length differs from its version's usual K",
     "unlabelled": "label NULL (not labelled yet)",
     "unknown_class": "label is not one of the names in classes",
     "label_conflict_or_unknown": "the labels table gives the id conflicting labels, an "
-                                 "unknown class name, or -1 (see the labels_table issues)",
+    "unknown class name, or -1 (see the labels_table issues)",
     "label_out_of_range": "label outside [0, K)",
     "null_timestamps": "time_col NULL",
     "out_of_order": "timestamp earlier than the nearest earlier non-NULL one in the same "
-                    "file (file order)",
+    "file (file order)",
     "null_versions": "version_col NULL",
     "duplicate_ids": "rows repeating an id_col value seen before (detail: how many ids)",
     "null_ids": "id_col NULL",
@@ -44,7 +43,7 @@ MEANINGS = {
 
 @dataclass(frozen=True)
 class Issue:
-    check: str   # scores, classes, labels, timestamps, versions, ids, labels_table, targets
+    check: str  # scores, classes, labels, timestamps, versions, ids, labels_table, targets
     reason: str
     count: int
     problem: bool
@@ -66,7 +65,7 @@ class FileStats:
 @dataclass(frozen=True)
 class VersionClasses:
     version: str | None
-    rows: int          # rows with scores (K known)
+    rows: int  # rows with scores (K known)
     usual_k: int | None
     other_k_rows: int
     k_seen: tuple
@@ -76,29 +75,33 @@ class VersionClasses:
 class Report:
     """Sections: columns (name, type, role), drift between files, rows per period and
     version, K per version, issues by reason, per-file counts (Parquet), and notes."""
+
     source: str
     grain: str
     columns: tuple
     drift: tuple
-    periods: tuple     # (period, version, rows)
-    classes: tuple     # VersionClasses
-    issues: tuple      # Issue
-    files: tuple       # FileStats
+    periods: tuple  # (period, version, rows)
+    classes: tuple  # VersionClasses
+    issues: tuple  # Issue
+    files: tuple  # FileStats
     notes: tuple
     clean: bool
 
     @property
     def problems(self) -> list:
         """The issues and drifts that make the log not clean."""
-        return ([i for i in self.issues if i.problem and i.count]
-                + [d for d in self.drift if d.problem])
+        return [i for i in self.issues if i.problem and i.count] + [
+            d for d in self.drift if d.problem
+        ]
 
     def to_dict(self) -> dict:
         """Plain JSON-ready data (dates as ISO strings)."""
         out = asdict(self)
         out["columns"] = [dict(zip(("name", "type", "role"), c)) for c in self.columns]
-        out["periods"] = [{"period": p.isoformat() if isinstance(p, dt.date) else p,
-                           "version": v, "rows": n} for p, v, n in self.periods]
+        out["periods"] = [
+            {"period": p.isoformat() if isinstance(p, dt.date) else p, "version": v, "rows": n}
+            for p, v, n in self.periods
+        ]
         out["issues"] = [{**asdict(i), "meaning": i.meaning} for i in self.issues]
         out["problems"] = len(self.problems)
         return out

@@ -1,15 +1,15 @@
 """The check's queries. Each is one streaming GROUP BY (the order check: one window per file)
-over the log; the row classification reads the templates' normalised `predictions`.
+over the log; the row classification reads the saved queries' normalised `predictions`.
 
 Row reasons are exclusive and tested in the order listed; a row's label is judged even when
 its scores are bad (its range only when its K is known).
 """
 
-from dbmetrics.templates.prelude import class_index, nested, predictions
-from dbmetrics.templates.schema import quote
+from dbmetrics.queries.roles import class_index
+from dbmetrics.queries.schema import quote
+from dbmetrics.queries.state_sql import nested, predictions
 
 from .params import Resolved
-
 
 SCORE_REASONS = (  # (reason, condition on s = scores as DOUBLE[]), for every kind
     ("missing_scores", "s IS NULL OR len(s) = 0"),
@@ -25,8 +25,11 @@ PROB_REASONS = (
     ("probs_not_summing_to_1", "abs(list_sum(s) - 1) > $tolerance"),
 )
 TARGET_REASONS = (  # on t = the soft target as DOUBLE[]; NULL targets are not judged
-    ("target_not_finite", "len(t) = 0 OR list_count(t) < len(t) "
-                          "OR NOT list_bool_and(list_transform(t, lambda v: isfinite(v)))"),
+    (
+        "target_not_finite",
+        "len(t) = 0 OR list_count(t) < len(t) "
+        "OR NOT list_bool_and(list_transform(t, lambda v: isfinite(v)))",
+    ),
     ("target_negative", "list_min(t) < 0"),
     ("target_not_summing_to_1", "abs(list_sum(t) - 1) > $tolerance"),
     ("target_length_differs", "len(s) > 0 AND len(t) <> len(s)"),
@@ -39,13 +42,13 @@ def cases(reasons) -> str:
 
 
 def label_reasons(r: Resolved) -> tuple:
-    cmap = r.cmap
-    if cmap.label is None:
+    roles = r.roles
+    if roles.label is None:
         return ()
     found = [("unlabelled", "label IS NULL")]
-    if cmap.labels is not None:
+    if roles.labels is not None:
         found.append(("label_conflict_or_unknown", "label = -1"))
-    elif cmap.classes:
+    elif roles.classes:
         found.append(("unknown_class", "label = -1"))
     found.append(("label_out_of_range", "label < 0 OR label >= k"))
     return tuple(found)
@@ -53,52 +56,69 @@ def label_reasons(r: Resolved) -> tuple:
 
 def rows(r: Resolved) -> str:
     """period x version x K x score reason x label reason -> rows (reason NULL: fine)."""
-    kind = r.cmap.kind
+    kind = r.roles.kind
     score = SCORE_REASONS + (PROB_REASONS if kind in ("probs", "binary_prob") else LOGIT_REASONS)
     labels = label_reasons(r)
-    version = quote(r.cmap.version)
-    cast = (f"SELECT day, {version}, label, CAST(scores AS DOUBLE[]) AS s\n"
-            f"FROM {nested(predictions(r.cmap))}")
+    version = quote(r.roles.version)
+    cast = (
+        f"SELECT day, {version}, label, CAST(scores AS DOUBLE[]) AS s\n"
+        f"FROM {nested(predictions(r.roles))}"
+    )
     sized = f"SELECT *, CASE WHEN len(s) > 0 THEN len(s) END AS k\nFROM {nested(cast)}"
-    judged = (f"SELECT day, {version}, k,\n"
-              f"    {cases(score)} AS score_issue,\n"
-              f"    {cases(labels) if labels else 'NULL'} AS label_issue\n"
-              f"FROM {nested(sized)}")
-    return (f"SELECT CAST(date_trunc($grain, day) AS DATE) AS period, {version} AS version, k,\n"
-            f"       score_issue, label_issue, count(*) AS n\n"
-            f"FROM {nested(judged)}\nGROUP BY ALL")
+    judged = (
+        f"SELECT day, {version}, k,\n"
+        f"    {cases(score)} AS score_issue,\n"
+        f"    {cases(labels) if labels else 'NULL'} AS label_issue\n"
+        f"FROM {nested(sized)}"
+    )
+    return (
+        f"SELECT CAST(date_trunc($grain, day) AS DATE) AS period, {version} AS version, k,\n"
+        f"       score_issue, label_issue, count(*) AS n\n"
+        f"FROM {nested(judged)}\nGROUP BY ALL"
+    )
 
 
 def order(r: Resolved, file_col: str) -> str:
     """Per Parquet file: rows, NULL timestamps, and rows earlier than the nearest earlier
     non-NULL timestamp in file order (`file_row_number`)."""
     src = r.logs.sql[:-1] + f", filename = '{file_col}', file_row_number = true)"
-    ordered = (f"SELECT {quote(file_col)} AS file, {quote(r.cmap.time)} AS t,\n"
-               f"       lag({quote(r.cmap.time)} IGNORE NULLS) OVER (PARTITION BY "
-               f"{quote(file_col)} ORDER BY file_row_number) AS prev\nFROM {src}")
-    return ("SELECT file, count(*) AS rows, count(*) FILTER (WHERE t IS NULL) AS null_timestamps,\n"
-            "       count(*) FILTER (WHERE t < prev) AS out_of_order\n"
-            f"FROM {nested(ordered)}\nGROUP BY file ORDER BY file")
+    ordered = (
+        f"SELECT {quote(file_col)} AS file, {quote(r.roles.time)} AS t,\n"
+        f"       lag({quote(r.roles.time)} IGNORE NULLS) OVER (PARTITION BY "
+        f"{quote(file_col)} ORDER BY file_row_number) AS prev\nFROM {src}"
+    )
+    return (
+        "SELECT file, count(*) AS rows, count(*) FILTER (WHERE t IS NULL) AS null_timestamps,\n"
+        "       count(*) FILTER (WHERE t < prev) AS out_of_order\n"
+        f"FROM {nested(ordered)}\nGROUP BY file ORDER BY file"
+    )
 
 
 def duplicates(r: Resolved) -> str:
     """Ids seen more than once, the rows beyond each id's first, and rows with a NULL id."""
     per_id = f"SELECT {quote(r.id_col)} AS id, count(*) AS n FROM {r.logs.sql} GROUP BY 1"
-    return ("SELECT count(*) FILTER (WHERE id IS NOT NULL AND n > 1) AS duplicated_ids,\n"
-            "       coalesce(sum(n - 1) FILTER (WHERE id IS NOT NULL AND n > 1), 0) "
-            "AS duplicate_rows,\n"
-            "       coalesce(sum(n) FILTER (WHERE id IS NULL), 0) AS null_ids\n"
-            f"FROM {nested(per_id)}")
+    return (
+        "SELECT count(*) FILTER (WHERE id IS NOT NULL AND n > 1) AS duplicated_ids,\n"
+        "       coalesce(sum(n - 1) FILTER (WHERE id IS NOT NULL AND n > 1), 0) "
+        "AS duplicate_rows,\n"
+        "       coalesce(sum(n) FILTER (WHERE id IS NULL), 0) AS null_ids\n"
+        f"FROM {nested(per_id)}"
+    )
 
 
 def labels_table(r: Resolved) -> str:
     """The separate labels: rows, NULL ids and labels, bad values, conflicts, orphans."""
-    cmap = r.cmap
-    idc, label = quote(cmap.id), quote(cmap.label)
-    bad = ("count(*) FILTER (WHERE y = -1) AS unknown_class_labels" if cmap.classes else
-           "count(*) FILTER (WHERE y < 0) AS negative_labels")
-    per_row = (f"SELECT {idc} AS id, {label} AS raw, {class_index(cmap, label)} AS y\n"
-               f"FROM {cmap.labels.sql}")
+    roles = r.roles
+    idc, label = quote(roles.id), quote(roles.label)
+    bad = (
+        "count(*) FILTER (WHERE y = -1) AS unknown_class_labels"
+        if roles.classes
+        else "count(*) FILTER (WHERE y < 0) AS negative_labels"
+    )
+    per_row = (
+        f"SELECT {idc} AS id, {label} AS raw, {class_index(roles, label)} AS y\n"
+        f"FROM {roles.labels.sql}"
+    )
     return f"""WITH lab AS {nested(per_row)},
 conflicts AS (SELECT id FROM lab WHERE id IS NOT NULL GROUP BY id HAVING min(y) <> max(y))
 SELECT count(*) AS label_rows,
@@ -107,17 +127,20 @@ SELECT count(*) AS label_rows,
        {bad},
        (SELECT count(*) FROM conflicts) AS conflicting_label_ids,
        count(*) FILTER (WHERE id IS NOT NULL AND NOT EXISTS (
-           SELECT 1 FROM {cmap.logs.sql} AS logs WHERE logs.{idc} = lab.id)) AS orphan_labels
+           SELECT 1 FROM {roles.logs.sql} AS logs WHERE logs.{idc} = lab.id)) AS orphan_labels
 FROM lab"""
 
 
 def targets(r: Resolved) -> str:
     """Soft targets by reason (NULL reason: a distribution, or no target)."""
-    scores = quote(r.cmap.scores)
-    if r.cmap.kind.startswith("binary_"):
+    scores = quote(r.roles.scores)
+    if r.roles.kind.startswith("binary_"):
         scores = f"[0.0, {scores}]"  # only its length (2) is used
-    rows_sql = (f"SELECT CAST({quote(r.target_col)} AS DOUBLE[]) AS t, "
-                f"CAST({scores} AS DOUBLE[]) AS s\nFROM {r.logs.sql}")
-    return (f"SELECT CASE WHEN t IS NULL THEN 'no_target' ELSE {cases(TARGET_REASONS)} END "
-            f"AS reason, count(*) AS n\nFROM {nested(rows_sql)}\nGROUP BY ALL")
-
+    rows_sql = (
+        f"SELECT CAST({quote(r.target_col)} AS DOUBLE[]) AS t, "
+        f"CAST({scores} AS DOUBLE[]) AS s\nFROM {r.logs.sql}"
+    )
+    return (
+        f"SELECT CASE WHEN t IS NULL THEN 'no_target' ELSE {cases(TARGET_REASONS)} END "
+        f"AS reason, count(*) AS n\nFROM {nested(rows_sql)}\nGROUP BY ALL"
+    )

@@ -18,19 +18,34 @@ SHOWN_FILES = 20
 
 
 @click.command("check")
-@click.option("--set", "-s", "settings", multiple=True, metavar="PARAM=VALUE",
-              help="A column-map or check parameter; repeat for more. Wins over the project file.")
-@click.option("--format", "-f", "fmt", type=click.Choice(("table", "json")),
-              help="Report format; default: from the --output suffix, else table.")
-@click.option("--output", "-o", metavar="PATH",
-              help="Write the report to this file (atomically: the old file stays until the new one is complete).")
+@click.option(
+    "--set",
+    "-s",
+    "settings",
+    multiple=True,
+    metavar="PARAM=VALUE",
+    help="A column-role or check parameter; repeat for more. Wins over the project file.",
+)
+@click.option(
+    "--format",
+    "-f",
+    "fmt",
+    type=click.Choice(("table", "json")),
+    help="Report format; default: from the --output suffix, else table.",
+)
+@click.option(
+    "--output",
+    "-o",
+    metavar="PATH",
+    help="Write the report to this file (atomically: the old file stays until the new one is complete).",
+)
 @click.pass_context
 def command(ctx, settings, fmt, output):
     """Check a prediction log: its schema, rows per period and version, the class count K
     per version, and bad rows by reason.
 
     Parameters (--set, or the project file's [params] and [queries.check]): the saved
-    queries' column map (logs, time_col, scores_col, scores_kind, label_col, version_col,
+    queries' column roles (logs, time_col, scores_col, scores_kind, label_col, version_col,
     labels, id_col, classes) and grain; target_col (soft targets), tolerance (default
     0.001) and require_labels (no|yes: count NULL labels as a problem).
 
@@ -47,7 +62,9 @@ def command(ctx, settings, fmt, output):
     params = merge("check", declared, session.project, parse_settings(settings))
     fmt = choose_format(fmt, output)
     if fmt not in ("table", "json"):
-        raise DbmetricsError(f"--output: check writes a table (.txt) or json (.json) report, not {fmt}")
+        raise DbmetricsError(
+            f"--output: check writes a table (.txt) or json (.json) report, not {fmt}"
+        )
     report = session.execute(lambda con: check.check_log(con, params))
     data = (as_json(report) if fmt == "json" else as_text(report)).encode()
     if output:
@@ -65,45 +82,95 @@ def summary(report) -> str:
 
 
 def as_json(report) -> str:
-    return json.dumps(report.to_dict(), indent=1, ensure_ascii=False, allow_nan=False,
-                      default=str) + "\n"
+    return (
+        json.dumps(report.to_dict(), indent=1, ensure_ascii=False, allow_nan=False, default=str)
+        + "\n"
+    )
 
 
 def as_text(report) -> str:
     """The report for a terminal: a verdict line, then one aligned table per section."""
     parts = [f"dbmetrics check: {report.source}: {summary(report).upper()}\n"]
-    parts.append(section("Columns", {
-        "column": [c[0] for c in report.columns], "type": [c[1] for c in report.columns],
-        "role": [c[2] or "" for c in report.columns]}))
+    parts.append(
+        section(
+            "Columns",
+            {
+                "column": [c[0] for c in report.columns],
+                "type": [c[1] for c in report.columns],
+                "role": [c[2] or "" for c in report.columns],
+            },
+        )
+    )
     if report.drift:
-        parts.append(section("Differences between files", {
-            "column": [d.column for d in report.drift],
-            "status": ["PROBLEM" if d.problem else "info" for d in report.drift],
-            "detail": [d.detail for d in report.drift]}, width=None))
-    parts.append(section(f"Rows per {report.grain} and version", {
-        "period": pa.array([p for p, _, _ in report.periods], pa.date32()),
-        "version": [None if v is None else str(v) for _, v, _ in report.periods],
-        "rows": pa.array([n for _, _, n in report.periods], pa.int64())}))
-    parts.append(section("Classes per version (K = scores length)", {
-        "version": [None if c.version is None else str(c.version) for c in report.classes],
-        "scored_rows": pa.array([c.rows for c in report.classes], pa.int64()),
-        "usual_k": pa.array([c.usual_k for c in report.classes], pa.int64()),
-        "other_k_rows": pa.array([c.other_k_rows for c in report.classes], pa.int64()),
-        "k_seen": [", ".join(map(str, c.k_seen)) for c in report.classes]}))
-    parts.append(section("Checks", {
-        "check": [i.check for i in report.issues], "reason": [i.reason for i in report.issues],
-        "count": pa.array([i.count for i in report.issues], pa.int64()),
-        "status": [status(i) for i in report.issues],
-        "meaning": [" ".join(filter(None, (i.meaning, i.detail and f"[{i.detail}]")))
-                    for i in report.issues]}, width=None))
+        parts.append(
+            section(
+                "Differences between files",
+                {
+                    "column": [d.column for d in report.drift],
+                    "status": ["PROBLEM" if d.problem else "info" for d in report.drift],
+                    "detail": [d.detail for d in report.drift],
+                },
+                width=None,
+            )
+        )
+    parts.append(
+        section(
+            f"Rows per {report.grain} and version",
+            {
+                "period": pa.array([p for p, _, _ in report.periods], pa.date32()),
+                "version": [None if v is None else str(v) for _, v, _ in report.periods],
+                "rows": pa.array([n for _, _, n in report.periods], pa.int64()),
+            },
+        )
+    )
+    parts.append(
+        section(
+            "Classes per version (K = scores length)",
+            {
+                "version": [None if c.version is None else str(c.version) for c in report.classes],
+                "scored_rows": pa.array([c.rows for c in report.classes], pa.int64()),
+                "usual_k": pa.array([c.usual_k for c in report.classes], pa.int64()),
+                "other_k_rows": pa.array([c.other_k_rows for c in report.classes], pa.int64()),
+                "k_seen": [", ".join(map(str, c.k_seen)) for c in report.classes],
+            },
+        )
+    )
+    parts.append(
+        section(
+            "Checks",
+            {
+                "check": [i.check for i in report.issues],
+                "reason": [i.reason for i in report.issues],
+                "count": pa.array([i.count for i in report.issues], pa.int64()),
+                "status": [status(i) for i in report.issues],
+                "meaning": [
+                    " ".join(filter(None, (i.meaning, i.detail and f"[{i.detail}]")))
+                    for i in report.issues
+                ],
+            },
+            width=None,
+        )
+    )
     bad = [f for f in report.files if f.null_timestamps or f.out_of_order]
     if bad:
         shown = bad[:SHOWN_FILES]
-        more = f" (first {SHOWN_FILES} of {len(bad)}; all in --format json)" if len(bad) > SHOWN_FILES else ""
-        parts.append(section(f"Files with timestamp problems{more}", {
-            "file": [f.file for f in shown], "rows": pa.array([f.rows for f in shown], pa.int64()),
-            "null_timestamps": pa.array([f.null_timestamps for f in shown], pa.int64()),
-            "out_of_order": pa.array([f.out_of_order for f in shown], pa.int64())}, width=None))
+        more = (
+            f" (first {SHOWN_FILES} of {len(bad)}; all in --format json)"
+            if len(bad) > SHOWN_FILES
+            else ""
+        )
+        parts.append(
+            section(
+                f"Files with timestamp problems{more}",
+                {
+                    "file": [f.file for f in shown],
+                    "rows": pa.array([f.rows for f in shown], pa.int64()),
+                    "null_timestamps": pa.array([f.null_timestamps for f in shown], pa.int64()),
+                    "out_of_order": pa.array([f.out_of_order for f in shown], pa.int64()),
+                },
+                width=None,
+            )
+        )
     if report.notes:
         parts.append("Notes:\n" + "".join(f"  {n}\n" for n in report.notes))
     return "\n".join(parts)

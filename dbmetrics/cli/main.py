@@ -32,14 +32,25 @@ class Group(click.Group):
 
 
 @click.group(cls=Group, context_settings={"help_option_names": ["-h", "--help"]})
-@click.option("--project", "project_file", envvar="DBMETRICS_PROJECT", metavar="PATH",
-              help="Project file (TOML) [env DBMETRICS_PROJECT; default ./dbmetrics.toml if present].")
-@click.option("--database", envvar="DBMETRICS_DATABASE", metavar="PATH",
-              help="DuckDB database file to open, kept between runs [env DBMETRICS_DATABASE; default in memory].")
+@click.option(
+    "--project",
+    "project_file",
+    envvar="DBMETRICS_PROJECT",
+    metavar="PATH",
+    help="Project file (TOML) [env DBMETRICS_PROJECT; default ./dbmetrics.toml if present].",
+)
+@click.option(
+    "--database",
+    envvar="DBMETRICS_DATABASE",
+    metavar="PATH",
+    help="DuckDB database file to open, kept between runs [env DBMETRICS_DATABASE; default in memory].",
+)
 @click.option("--memory-limit", metavar="SIZE", help="DuckDB memory limit, e.g. 4GB.")
 @click.option("--threads", type=click.IntRange(min=1), help="DuckDB worker threads.")
 @click.option("--quiet", "-q", is_flag=True, help="No progress and no notes on stderr.")
-@click.option("--verbose", "-v", is_flag=True, help="Notes on stderr and full tracebacks on errors.")
+@click.option(
+    "--verbose", "-v", is_flag=True, help="Notes on stderr and full tracebacks on errors."
+)
 @click.pass_context
 def cli(ctx, project_file, database, memory_limit, threads, quiet, verbose):
     """Measure classifiers from Parquet prediction logs with DuckDB.

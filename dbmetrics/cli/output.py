@@ -14,8 +14,9 @@ import json
 import math
 import os
 import tempfile
+from collections.abc import Callable
 from pathlib import Path
-from typing import BinaryIO, Callable
+from typing import BinaryIO
 
 import pyarrow as pa
 
@@ -23,7 +24,13 @@ from dbmetrics.cli.textable import render
 from dbmetrics.errors import DbmetricsError
 
 FORMATS = ("table", "csv", "json", "parquet")
-SUFFIXES = {".txt": "table", ".csv": "csv", ".json": "json", ".parquet": "parquet", ".pq": "parquet"}
+SUFFIXES = {
+    ".txt": "table",
+    ".csv": "csv",
+    ".json": "json",
+    ".parquet": "parquet",
+    ".pq": "parquet",
+}
 
 
 def choose_format(fmt: str | None, output: str | None) -> str:
@@ -36,7 +43,8 @@ def choose_format(fmt: str | None, output: str | None) -> str:
     if suffix not in SUFFIXES:
         raise DbmetricsError(
             f"--output: cannot tell the format from '{output}'; "
-            f"use a suffix ({', '.join(SUFFIXES)}) or pass --format")
+            f"use a suffix ({', '.join(SUFFIXES)}) or pass --format"
+        )
     return SUFFIXES[suffix]
 
 
@@ -45,7 +53,9 @@ def encode(table: pa.Table, fmt: str, out: BinaryIO) -> None:
     try:
         _WRITERS[fmt](table, out)
     except (pa.ArrowNotImplementedError, pa.ArrowInvalid) as e:
-        raise DbmetricsError(f"--format {fmt}: cannot write this result: {e}; try --format json or parquet") from None
+        raise DbmetricsError(
+            f"--format {fmt}: cannot write this result: {e}; try --format json or parquet"
+        ) from None
 
 
 def atomic_write(path: str, write: Callable[[BinaryIO], None]) -> None:
@@ -107,8 +117,10 @@ def _parquet(table: pa.Table, out: BinaryIO) -> None:
 
 def _json(table: pa.Table, out: BinaryIO) -> None:
     """An array with one record per line."""
-    rows = [json.dumps(_plain(row), ensure_ascii=False, allow_nan=False, default=_default)
-            for row in table.to_pylist()]
+    rows = [
+        json.dumps(_plain(row), ensure_ascii=False, allow_nan=False, default=_default)
+        for row in table.to_pylist()
+    ]
     out.write(("[\n" + ",\n".join(rows) + "\n]\n" if rows else "[]\n").encode())
 
 

@@ -22,7 +22,9 @@ def parse_settings(settings: tuple[str, ...]) -> dict[str, str]:
             raise click.BadParameter(f"expected PARAM=VALUE, got {item!r}", param_hint="'--set'")
         if not _NAME.match(name):
             raise click.BadParameter(
-                f"parameter name {name!r} is not a plain name (letters, digits, _)", param_hint="'--set'")
+                f"parameter name {name!r} is not a plain name (letters, digits, _)",
+                param_hint="'--set'",
+            )
         parsed[name] = value
     return parsed
 
@@ -30,12 +32,13 @@ def parse_settings(settings: tuple[str, ...]) -> dict[str, str]:
 def merge(query: str, declared: list[str], project: Project, cli: dict[str, str]) -> dict[str, str]:
     """Template defaults < project ``[params]`` < ``[queries.QUERY]`` < ``--set``.
 
-    Unknown names in ``[queries.QUERY]`` are refused here, naming the file; the templates
+    Unknown names in ``[queries.QUERY]`` are refused here, naming the file; the saved queries
     refuse unknown ``--set`` names.
     """
     unknown = [name for name in project.queries.get(query, {}) if name not in declared]
     if unknown:
         raise DbmetricsError(
             f"{project.path} [queries.{query}]: query '{query}' has no parameter '{unknown[0]}'; "
-            f"its parameters are: {', '.join(declared) or '(none)'}")
+            f"its parameters are: {', '.join(declared) or '(none)'}"
+        )
     return {**project.params_for(query, set(declared)), **cli}

@@ -27,12 +27,27 @@ def command():
 
 @command.command("update")
 @click.option("--store", required=True, metavar="DIR", help="The store folder (created if absent).")
-@click.option("--set", "-s", "settings", multiple=True, metavar="PARAM=VALUE",
-              help="A column-map parameter (logs, time_col, scores_col, ...); repeat for more.")
-@click.option("--relabel-days", type=click.IntRange(min=0), default=14, show_default=True,
-              help="Recompute this many of the latest stored days, whose labels may have arrived since.")
-@click.option("--since", type=click.DateTime(formats=["%Y-%m-%d"]), metavar="YYYY-MM-DD",
-              help="Recompute every day from this one on (instead of --relabel-days).")
+@click.option(
+    "--set",
+    "-s",
+    "settings",
+    multiple=True,
+    metavar="PARAM=VALUE",
+    help="A column-role parameter (logs, time_col, scores_col, ...); repeat for more.",
+)
+@click.option(
+    "--relabel-days",
+    type=click.IntRange(min=0),
+    default=14,
+    show_default=True,
+    help="Recompute this many of the latest stored days, whose labels may have arrived since.",
+)
+@click.option(
+    "--since",
+    type=click.DateTime(formats=["%Y-%m-%d"]),
+    metavar="YYYY-MM-DD",
+    help="Recompute every day from this one on (instead of --relabel-days).",
+)
 @click.option("--full", is_flag=True, help="Recompute every day in the log.")
 @click.pass_context
 def update_command(ctx, store, settings, relabel_days, since, full):
@@ -46,16 +61,19 @@ def update_command(ctx, store, settings, relabel_days, since, full):
       dbmetrics partials update --store metrics_store --set logs=demo_parquet/logs \\
           --set labels=demo_parquet/labels/labels.parquet --set id_col=prediction_id
     """
-    from dbmetrics import partials, templates
-    from dbmetrics.templates.header import COLUMN_MAP
+    from dbmetrics import partials, queries
+    from dbmetrics.queries.header import COLUMN_MAP
 
     session = ctx.obj
-    declared = [p.name for p in templates.get_query("rollup").params]
+    declared = [p.name for p in queries.get_query("rollup").params]
     merged = merge("rollup", declared, session.project, parse_settings(settings))
     params = {k: v for k, v in merged.items() if k in COLUMN_MAP}
     day = since.date() if isinstance(since, dt.datetime) else None
-    summary = session.execute(lambda con: partials.update(
-        con, params, store, since=day, relabel_days=relabel_days, full=full))
+    summary = session.execute(
+        lambda con: partials.update(
+            con, params, store, since=day, relabel_days=relabel_days, full=full
+        )
+    )
     ctx.exit(emit(session, pa.Table.from_pylist([summary]), None, None, None))
 
 
@@ -63,7 +81,7 @@ def update_command(ctx, store, settings, relabel_days, since, full):
 @click.option("--store", required=True, metavar="DIR", help="The store folder.")
 @click.pass_context
 def show_command(ctx, store):
-    """Show a store's column map and the days it holds.
+    """Show a store's column roles and the days it holds.
 
     \b
     Example:
@@ -72,5 +90,12 @@ def show_command(ctx, store):
     from dbmetrics import partials
 
     summary = partials.describe(store)
-    ctx.exit(emit(ctx.obj, pa.Table.from_pylist([{k: str(v) for k, v in summary.items()}]),
-                  None, None, None))
+    ctx.exit(
+        emit(
+            ctx.obj,
+            pa.Table.from_pylist([{k: str(v) for k, v in summary.items()}]),
+            None,
+            None,
+            None,
+        )
+    )

@@ -16,23 +16,53 @@ from dbmetrics.cli.params import merge, parse_settings
 
 def _plot_options(command):
     """--set, --by, --only, --start, --end, --title and --output."""
-    for option in reversed([
-        click.option("--set", "-s", "settings", multiple=True, metavar="PARAM=VALUE",
-                     help="A query parameter; repeat for more. Wins over the project file."),
-        click.option("--by", metavar="COLUMN",
-                     help="One curve per value of this column: the version column (default) or a segment "
-                          "column (added to segment_cols when missing)."),
-        click.option("--only", multiple=True, metavar="COLUMN=VALUE", callback=_pairs,
-                     help="Keep result rows whose COLUMN equals VALUE; repeat for more. A segment "
-                          "column is added to segment_cols when missing."),
-        click.option("--start", type=click.DateTime(["%Y-%m-%d"]), metavar="DATE",
-                     help="Keep periods whose first day is on or after DATE."),
-        click.option("--end", type=click.DateTime(["%Y-%m-%d"]), metavar="DATE",
-                     help="Keep periods whose first day is on or before DATE."),
-        click.option("--title", help="Title instead of the generated one."),
-        click.option("--output", "-o", required=True, metavar="FILE.png", callback=_png_path,
-                     help="PNG file to write (atomically: the old file stays until the new one is complete)."),
-    ]):
+    for option in reversed(
+        [
+            click.option(
+                "--set",
+                "-s",
+                "settings",
+                multiple=True,
+                metavar="PARAM=VALUE",
+                help="A query parameter; repeat for more. Wins over the project file.",
+            ),
+            click.option(
+                "--by",
+                metavar="COLUMN",
+                help="One curve per value of this column: the version column (default) or a segment "
+                "column (added to segment_cols when missing).",
+            ),
+            click.option(
+                "--only",
+                multiple=True,
+                metavar="COLUMN=VALUE",
+                callback=_pairs,
+                help="Keep result rows whose COLUMN equals VALUE; repeat for more. A segment "
+                "column is added to segment_cols when missing.",
+            ),
+            click.option(
+                "--start",
+                type=click.DateTime(["%Y-%m-%d"]),
+                metavar="DATE",
+                help="Keep periods whose first day is on or after DATE.",
+            ),
+            click.option(
+                "--end",
+                type=click.DateTime(["%Y-%m-%d"]),
+                metavar="DATE",
+                help="Keep periods whose first day is on or before DATE.",
+            ),
+            click.option("--title", help="Title instead of the generated one."),
+            click.option(
+                "--output",
+                "-o",
+                required=True,
+                metavar="FILE.png",
+                callback=_png_path,
+                help="PNG file to write (atomically: the old file stays until the new one is complete).",
+            ),
+        ]
+    ):
         command = option(command)
     return command
 
@@ -84,10 +114,23 @@ def reliability(session, settings, by, only, start, end, title, output):
 
 
 @command.command("trend")
-@click.option("--query", "-q", "name", type=click.Choice(["rollup", "drift"]), default="rollup",
-              show_default=True, help="Saved query whose result to draw.")
-@click.option("--metric", "-m", default="cross_entropy", show_default=True, metavar="COLUMN",
-              help="Numeric output column to draw over period, e.g. accuracy, ece, prediction_js.")
+@click.option(
+    "--query",
+    "-q",
+    "name",
+    type=click.Choice(["rollup", "drift"]),
+    default="rollup",
+    show_default=True,
+    help="Saved query whose result to draw.",
+)
+@click.option(
+    "--metric",
+    "-m",
+    default="cross_entropy",
+    show_default=True,
+    metavar="COLUMN",
+    help="Numeric output column to draw over period, e.g. accuracy, ece, prediction_js.",
+)
 @_plot_options
 @click.pass_obj
 def trend(session, name, metric, settings, by, only, start, end, title, output):
@@ -110,11 +153,11 @@ def trend(session, name, metric, settings, by, only, start, end, title, output):
 
 def _query(session, name, settings, by, only, start, end):
     """Run query ``name`` with the merged parameters; (kept rows, by column, group columns, grain)."""
-    from dbmetrics import plots, templates
+    from dbmetrics import plots, queries
 
     plots.require_matplotlib()
     dirs = session.query_dirs
-    info = templates.get_query(name, query_dirs=dirs)
+    info = queries.get_query(name, query_dirs=dirs)
     params = merge(name, [p.name for p in info.params], session.project, parse_settings(settings))
     resolved = {p.name: p.default for p in info.params} | params
     equal = dict(item.partition("=")[::2] for item in only)
@@ -127,7 +170,7 @@ def _query(session, name, settings, by, only, start, end):
             segments.append(column)
     if segments:
         params["segment_cols"] = ",".join(segments)
-    table = session.execute(lambda con: templates.run_query(con, name, params, query_dirs=dirs))
+    table = session.execute(lambda con: queries.run_query(con, name, params, query_dirs=dirs))
     table = plots.keep_rows(table, equal, start and start.date(), end and end.date())
     return table, by, (version, *segments), resolved["grain"]
 

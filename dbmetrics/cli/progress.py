@@ -8,7 +8,8 @@ from __future__ import annotations
 
 import threading
 import time
-from typing import Callable, TextIO, TypeVar
+from collections.abc import Callable
+from typing import TextIO, TypeVar
 
 import duckdb
 
@@ -29,7 +30,9 @@ def run(con: duckdb.DuckDBPyConnection, call: Callable[[], T], stream: TextIO | 
     On KeyboardInterrupt the query is interrupted and the interrupt re-raised.
     """
     box: dict = {}
-    done = threading.Event()  # not Thread.join(): a Ctrl-C inside it can mark a running thread stopped
+    done = (
+        threading.Event()
+    )  # not Thread.join(): a Ctrl-C inside it can mark a running thread stopped
 
     def work():
         try:

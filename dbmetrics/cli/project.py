@@ -69,17 +69,24 @@ def load(path: Path | None) -> Project:
     if unknown:
         raise DbmetricsError(
             f"{path}: unknown setting(s) {', '.join(unknown)}; "
-            f"known settings are: {', '.join(sorted(_SETTINGS))}")
+            f"known settings are: {', '.join(sorted(_SETTINGS))}"
+        )
     base = path.parent
     queries = _table(data, "queries", path)
     return Project(
         path=path,
         database=_path_value(data.get("database"), base, "database", path),
-        query_dirs=tuple(_path_value(d, base, "query_dirs", path) for d in _list(data, "query_dirs", path)),
-        memory_limit=_scalar(data["memory_limit"], "memory_limit", path) if "memory_limit" in data else None,
+        query_dirs=tuple(
+            _path_value(d, base, "query_dirs", path) for d in _list(data, "query_dirs", path)
+        ),
+        memory_limit=_scalar(data["memory_limit"], "memory_limit", path)
+        if "memory_limit" in data
+        else None,
         threads=_threads(data.get("threads"), path),
         params=_params(_table(data, "params", path), "params", path),
-        queries={name: _params(_table(queries, name, path), f"queries.{name}", path) for name in queries},
+        queries={
+            name: _params(_table(queries, name, path), f"queries.{name}", path) for name in queries
+        },
     )
 
 
@@ -92,7 +99,8 @@ def _parse(path: Path) -> dict:
         except ModuleNotFoundError:
             raise DbmetricsError(
                 f"{path}: reading a project file needs Python 3.11+ or the 'tomli' package; "
-                "pip install tomli") from None
+                "pip install tomli"
+            ) from None
     try:
         with open(path, "rb") as f:
             return tomllib.load(f)
@@ -103,7 +111,9 @@ def _parse(path: Path) -> dict:
 def _table(data: dict, key: str, path: Path) -> dict:
     value = data.get(key, {})
     if not isinstance(value, dict):
-        raise DbmetricsError(f"{path}: '{key}' must be a table ([{key}]), got {type(value).__name__}")
+        raise DbmetricsError(
+            f"{path}: '{key}' must be a table ([{key}]), got {type(value).__name__}"
+        )
     return value
 
 
@@ -147,4 +157,5 @@ def _scalar(value, where: str, path: Path) -> str:
     if isinstance(value, list) and all(isinstance(v, str) for v in value):
         return ",".join(value)
     raise DbmetricsError(
-        f"{path}: '{where}' must be a string, number, boolean or list of strings, got {value!r}")
+        f"{path}: '{where}' must be a string, number, boolean or list of strings, got {value!r}"
+    )

@@ -18,33 +18,39 @@ def command(session, name):
     Example:
       dbmetrics queries && dbmetrics queries rollup
     """
-    from dbmetrics import templates
+    from dbmetrics import queries
 
     dirs = session.query_dirs
     if name is None:
-        found = templates.list_queries(query_dirs=dirs)
-        listing = pa.table({
-            "query": [q.name for q in found],
-            "from": [str(q.origin) for q in found],
-            "description": [q.summary for q in found],
-        })
+        found = queries.list_queries(query_dirs=dirs)
+        listing = pa.table(
+            {
+                "query": [q.name for q in found],
+                "from": [str(q.origin) for q in found],
+                "description": [q.summary for q in found],
+            }
+        )
         click.echo(render(listing, count=False, width=None), nl=False)
         return
-    click.echo(_describe(templates.get_query(name, query_dirs=dirs)), nl=False)
+    click.echo(_describe(queries.get_query(name, query_dirs=dirs)), nl=False)
 
 
 def _describe(info) -> str:
     """Summary, file, parameters, output columns, notes and the example, from the header."""
-    params = pa.table({
-        "parameter": [p.name for p in info.params],
-        "type": [str(p.type) for p in info.params],
-        "default": ["(required)" if p.required else _show(p.default) for p in info.params],
-        "meaning": [p.help for p in info.params],
-    })
+    params = pa.table(
+        {
+            "parameter": [p.name for p in info.params],
+            "type": [str(p.type) for p in info.params],
+            "default": ["(required)" if p.required else _show(p.default) for p in info.params],
+            "meaning": [p.help for p in info.params],
+        }
+    )
     parts = [f"{info.name}: {info.summary}\nfile: {info.path}\n"]
     parts.append(render(params, count=False, width=None) if info.params else "(no parameters)\n")
     if info.outputs:
-        outputs = pa.table({"column": [c for c, _ in info.outputs], "meaning": [m for _, m in info.outputs]})
+        outputs = pa.table(
+            {"column": [c for c, _ in info.outputs], "meaning": [m for _, m in info.outputs]}
+        )
         parts.append("Output columns:\n" + render(outputs, count=False, width=None))
     if info.notes:
         parts.append("Notes:\n" + "".join(f"  {note}\n" for note in info.notes))

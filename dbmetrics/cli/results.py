@@ -18,21 +18,34 @@ EXIT_FLAGGED = 3
 def output_options(command):
     """``--format``, ``--output`` and ``--fail-on-flag``."""
     command = click.option(
-        "--fail-on-flag", "flag_column", is_flag=False, flag_value="flagged", default=None,
+        "--fail-on-flag",
+        "flag_column",
+        is_flag=False,
+        flag_value="flagged",
+        default=None,
         metavar="[COLUMN]",
         help="After writing, exit with status 3 if any row is true in this BOOLEAN "
-             "column (default column: flagged). Put it last or write --fail-on-flag=COLUMN.")(command)
+        "column (default column: flagged). Put it last or write --fail-on-flag=COLUMN.",
+    )(command)
     command = click.option(
-        "--output", "-o", metavar="PATH",
-        help="Write to this file (atomically: the old file stays until the new one is complete).")(command)
+        "--output",
+        "-o",
+        metavar="PATH",
+        help="Write to this file (atomically: the old file stays until the new one is complete).",
+    )(command)
     command = click.option(
-        "--format", "-f", "fmt", type=click.Choice(FORMATS),
-        help="Output format; default: from the --output suffix, else table.")(command)
+        "--format",
+        "-f",
+        "fmt",
+        type=click.Choice(FORMATS),
+        help="Output format; default: from the --output suffix, else table.",
+    )(command)
     return command
 
 
-def emit(session: Session, table: pa.Table, fmt: str | None, output: str | None,
-         flag_column: str | None) -> int:
+def emit(
+    session: Session, table: pa.Table, fmt: str | None, output: str | None, flag_column: str | None
+) -> int:
     """Write ``table`` to ``output`` or stdout; the exit status (3 if flagged rows)."""
     fmt = choose_format(fmt, output)
     flagged = flagged_rows(table, flag_column) if flag_column else 0
@@ -56,8 +69,11 @@ def flagged_rows(table: pa.Table, column: str) -> int:
     if column not in table.column_names:
         raise DbmetricsError(
             f"--fail-on-flag: the result has no column '{column}'; "
-            f"columns are: {', '.join(table.column_names)}")
+            f"columns are: {', '.join(table.column_names)}"
+        )
     values = table[column]
     if not pa.types.is_boolean(values.type):
-        raise DbmetricsError(f"--fail-on-flag: column '{column}' is {values.type}, expected a BOOLEAN column")
+        raise DbmetricsError(
+            f"--fail-on-flag: column '{column}' is {values.type}, expected a BOOLEAN column"
+        )
     return pc.sum(pc.cast(values, pa.int64())).as_py() or 0

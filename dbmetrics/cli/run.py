@@ -10,8 +10,14 @@ from dbmetrics.cli.results import emit, output_options
 
 @click.command("run")
 @click.argument("name")
-@click.option("--set", "-s", "settings", multiple=True, metavar="PARAM=VALUE",
-              help="A query parameter; repeat for more. Wins over the project file.")
+@click.option(
+    "--set",
+    "-s",
+    "settings",
+    multiple=True,
+    metavar="PARAM=VALUE",
+    help="A query parameter; repeat for more. Wins over the project file.",
+)
 @output_options
 @click.pass_context
 def command(ctx, name, settings, fmt, output, flag_column):
@@ -25,15 +31,15 @@ def command(ctx, name, settings, fmt, output, flag_column):
       dbmetrics run drift --set logs=demo_parquet/logs --set id_col=prediction_id \\
           --set labels=demo_parquet/labels/labels.parquet --output drift.csv --fail-on-flag
     """
-    from dbmetrics import templates
+    from dbmetrics import queries
 
     session = ctx.obj
     cli_params = parse_settings(settings)
     dirs = session.query_dirs
-    info = templates.get_query(name, query_dirs=dirs)
+    info = queries.get_query(name, query_dirs=dirs)
     params = merge(name, [p.name for p in info.params], session.project, cli_params)
     if session.verbose:
-        sql, bound = templates.render_query(session.connect(), name, params, query_dirs=dirs)
+        sql, bound = queries.render_query(session.connect(), name, params, query_dirs=dirs)
         session.info(f"-- {info.path}\n{sql}\n-- bound: {bound}")
-    table = session.execute(lambda con: templates.run_query(con, name, params, query_dirs=dirs))
+    table = session.execute(lambda con: queries.run_query(con, name, params, query_dirs=dirs))
     ctx.exit(emit(session, table, fmt, output, flag_column))

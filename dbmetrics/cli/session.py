@@ -6,8 +6,9 @@ Precedence: command-line option, then environment variable, then project file, t
 from __future__ import annotations
 
 import sys
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable, TypeVar
+from typing import TypeVar
 
 import click
 import duckdb
@@ -33,7 +34,7 @@ class Session:
 
     @property
     def query_dirs(self) -> list[str]:
-        """The project's query folders (the templates add ``DBMETRICS_QUERY_PATH`` themselves)."""
+        """The project's query folders (the saved queries add ``DBMETRICS_QUERY_PATH`` themselves)."""
         return list(self.project.query_dirs)
 
     @property

@@ -23,7 +23,9 @@ def command(ctx, query, sql_file, fmt, output, flag_column):
       dbmetrics sql "SELECT softmax([1.0, 2.0, 3.0]) AS p, cross_entropy([1.0, 2.0, 3.0], 2) AS loss"
     """
     if (query is None) == (sql_file is None):
-        raise click.UsageError("give the SQL either as an argument (- for stdin) or with --file PATH")
+        raise click.UsageError(
+            "give the SQL either as an argument (- for stdin) or with --file PATH"
+        )
     if sql_file is not None:
         with open(sql_file, encoding="utf-8") as f:
             query = f.read()

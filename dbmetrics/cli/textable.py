@@ -16,7 +16,10 @@ def render(table: pa.Table, count: bool = True, width: int | None = MAX_WIDTH) -
         return ""
     columns = [[_cut(_cell(v), width) for v in col.to_pylist()] for col in table.columns]
     right = [_numeric(f.type) for f in table.schema]
-    widths = [max([len(name)] + [len(c) for c in cells]) for name, cells in zip(table.column_names, columns)]
+    widths = [
+        max([len(name)] + [len(c) for c in cells])
+        for name, cells in zip(table.column_names, columns)
+    ]
 
     def line(cells):
         parts = [c.rjust(w) if r else c.ljust(w) for c, w, r in zip(cells, widths, right)]

@@ -1,4 +1,5 @@
 """Write the demo dataset: monthly hive-partitioned logs, one label file, a region table."""
+
 from contextlib import suppress
 from datetime import date, timedelta
 from itertools import groupby
@@ -16,8 +17,13 @@ DEFAULT_WEEKS = 26
 DEFAULT_START = date(2026, 1, 5)
 
 
-def generate(out_dir, seed: int = DEFAULT_SEED, rows_per_day: int = DEFAULT_ROWS_PER_DAY,
-             weeks: int = DEFAULT_WEEKS, start: date = DEFAULT_START) -> dict:
+def generate(
+    out_dir,
+    seed: int = DEFAULT_SEED,
+    rows_per_day: int = DEFAULT_ROWS_PER_DAY,
+    weeks: int = DEFAULT_WEEKS,
+    start: date = DEFAULT_START,
+) -> dict:
     """Generate ``weeks`` weeks of ``rows_per_day`` predictions a day from ``start`` into ``out_dir``.
 
     Writes ``logs/month=YYYY-MM/part-0.parquet``, ``labels/labels.parquet`` and ``regions.csv``;
@@ -30,7 +36,11 @@ def generate(out_dir, seed: int = DEFAULT_SEED, rows_per_day: int = DEFAULT_ROWS
     days = [start + timedelta(days=i) for i in range(7 * weeks)]
     as_of = start + timedelta(days=7 * weeks)
     streams = np.random.SeedSequence(seed).spawn(len(days))
-    paths = {"logs": out / "logs", "labels": out / "labels" / "labels.parquet", "regions": out / "regions.csv"}
+    paths = {
+        "logs": out / "logs",
+        "labels": out / "labels" / "labels.parquet",
+        "regions": out / "regions.csv",
+    }
     written = set()
     with parquet_sink(paths["labels"], LABELS_SCHEMA) as write_labels:
         for month, month_days in groupby(enumerate(days), key=lambda item: f"{item[1]:%Y-%m}"):

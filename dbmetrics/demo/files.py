@@ -1,4 +1,5 @@
 """Atomic file writers: each file appears complete under its name, or not at all."""
+
 import csv
 import os
 from contextlib import contextmanager

@@ -4,6 +4,7 @@ Every number below is made up. One row of a ``*_MULT`` table multiplies the base
 class mix; the true class of a prediction is drawn from the normalised product.
 Weeks are 1-based and start on the Monday given to ``generate``.
 """
+
 import numpy as np
 
 CLASSES = ("damaged", "wrong_size", "arrived_late", "not_as_described", "changed_mind", "other")
@@ -19,23 +20,29 @@ TIER_P = (0.60, 0.30, 0.10)
 
 #: Class mix the model was trained on; its logits carry log(BASE_MIX) as prior.
 BASE_MIX = np.array([0.18, 0.30, 0.12, 0.12, 0.20, 0.08])
-REGION_MULT = np.array([
-    [1.0, 1.0, 1.4, 1.0, 1.0, 1.0],  # north: winter shipping delays
-    [1.0, 1.1, 0.9, 1.0, 1.0, 1.0],  # south
-    [1.1, 1.0, 1.0, 1.0, 1.0, 1.0],  # east
-    [1.0, 1.0, 1.0, 1.0, 1.1, 1.0],  # west
-    [1.3, 0.9, 1.0, 1.0, 0.9, 1.0],  # alpine: rough roads, more damage
-])
-CHANNEL_MULT = np.array([
-    [1.0, 1.0, 1.0, 1.0, 1.0, 1.0],  # web
-    [1.0, 1.2, 0.3, 1.0, 1.1, 1.0],  # store: picked up in store, rarely late
-    [1.0, 0.9, 1.2, 1.0, 0.9, 1.8],  # phone: more 'other'
-])
-TIER_MULT = np.array([
-    [1.0, 1.0, 1.0, 1.0, 1.1, 1.0],  # basic
-    [1.0, 1.0, 1.0, 1.0, 1.0, 1.0],  # plus
-    [1.0, 1.0, 1.0, 1.1, 0.7, 1.0],  # pro: fewer impulse returns
-])
+REGION_MULT = np.array(
+    [
+        [1.0, 1.0, 1.4, 1.0, 1.0, 1.0],  # north: winter shipping delays
+        [1.0, 1.1, 0.9, 1.0, 1.0, 1.0],  # south
+        [1.1, 1.0, 1.0, 1.0, 1.0, 1.0],  # east
+        [1.0, 1.0, 1.0, 1.0, 1.1, 1.0],  # west
+        [1.3, 0.9, 1.0, 1.0, 0.9, 1.0],  # alpine: rough roads, more damage
+    ]
+)
+CHANNEL_MULT = np.array(
+    [
+        [1.0, 1.0, 1.0, 1.0, 1.0, 1.0],  # web
+        [1.0, 1.2, 0.3, 1.0, 1.1, 1.0],  # store: picked up in store, rarely late
+        [1.0, 0.9, 1.2, 1.0, 0.9, 1.8],  # phone: more 'other'
+    ]
+)
+TIER_MULT = np.array(
+    [
+        [1.0, 1.0, 1.0, 1.0, 1.1, 1.0],  # basic
+        [1.0, 1.0, 1.0, 1.0, 1.0, 1.0],  # plus
+        [1.0, 1.0, 1.0, 1.1, 0.7, 1.0],  # pro: fewer impulse returns
+    ]
+)
 
 #: Signal strength: a row's feature vector is SIGNAL * onehot(true class) + N(0, 1).
 #: v1 logits = SIGNAL * features + log(BASE_MIX), calibrated for web notes.

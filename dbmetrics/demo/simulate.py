@@ -1,4 +1,5 @@
 """Simulate one day of predictions and the labels that arrive for them."""
+
 from datetime import date, datetime, timedelta
 
 import numpy as np
@@ -7,26 +8,32 @@ import pyarrow.compute as pc
 
 from . import scenario as sc
 
-LOGS_SCHEMA = pa.schema([
-    ("prediction_id", pa.string()),
-    ("ts", pa.timestamp("us")),
-    ("model_version", pa.string()),
-    ("region", pa.string()),
-    ("channel", pa.string()),
-    ("customer_tier", pa.string()),
-    ("logits", pa.list_(pa.float32())),
-])
-LABELS_SCHEMA = pa.schema([
-    ("prediction_id", pa.string()),
-    ("label", pa.int32()),
-    ("labelled_at", pa.timestamp("us")),
-])
+LOGS_SCHEMA = pa.schema(
+    [
+        ("prediction_id", pa.string()),
+        ("ts", pa.timestamp("us")),
+        ("model_version", pa.string()),
+        ("region", pa.string()),
+        ("channel", pa.string()),
+        ("customer_tier", pa.string()),
+        ("logits", pa.list_(pa.float32())),
+    ]
+)
+LABELS_SCHEMA = pa.schema(
+    [
+        ("prediction_id", pa.string()),
+        ("label", pa.int32()),
+        ("labelled_at", pa.timestamp("us")),
+    ]
+)
 DAY_US = 86_400_000_000
 
 
 def _epoch_us(d: date) -> int:
     """Microseconds from 1970-01-01 to midnight of ``d``."""
-    return (datetime.combine(d, datetime.min.time()) - datetime(1970, 1, 1)) // timedelta(microseconds=1)
+    return (datetime.combine(d, datetime.min.time()) - datetime(1970, 1, 1)) // timedelta(
+        microseconds=1
+    )
 
 
 def _sample_rows(p: np.ndarray, u: np.ndarray) -> np.ndarray:
@@ -38,7 +45,9 @@ def _logits_array(logits: np.ndarray, null: np.ndarray) -> pa.ListArray:
     """(n, K) float32 matrix -> FLOAT[] list array, NULL where ``null`` (those rows hold no values)."""
     lengths = np.where(null, 0, logits.shape[1])
     offsets = np.concatenate([[0], np.cumsum(lengths)]).astype(np.int32)
-    return pa.ListArray.from_arrays(pa.array(offsets), pa.array(logits[~null].ravel()), mask=pa.array(null))
+    return pa.ListArray.from_arrays(
+        pa.array(offsets), pa.array(logits[~null].ravel()), mask=pa.array(null)
+    )
 
 
 def _names(values, codes: np.ndarray) -> pa.Array:
@@ -51,8 +60,14 @@ def _labels(rng, ids, ts_us, y, as_of_us):
     lo, hi = sc.LABEL_DELAY_DAYS
     labelled_at = ts_us + (rng.uniform(lo, hi, len(y)) * DAY_US).astype(np.int64)
     keep = (labelled_at < as_of_us) & (rng.random(len(y)) >= sc.NEVER_LABELLED)
-    return pa.table([ids.filter(pa.array(keep)), pa.array(y[keep], pa.int32()),
-                     pa.array(labelled_at[keep], pa.timestamp("us"))], schema=LABELS_SCHEMA)
+    return pa.table(
+        [
+            ids.filter(pa.array(keep)),
+            pa.array(y[keep], pa.int32()),
+            pa.array(labelled_at[keep], pa.timestamp("us")),
+        ],
+        schema=LABELS_SCHEMA,
+    )
 
 
 def simulate_day(rng: np.random.Generator, day_index: int, day: date, rows: int, as_of: date):
@@ -87,10 +102,20 @@ def simulate_day(rng: np.random.Generator, day_index: int, day: date, rows: int,
 
     ts_us = _epoch_us(day) + np.sort(rng.integers(0, DAY_US, rows))
     ids = pc.binary_join_element_wise(
-        f"rt-{day:%Y%m%d}-", pc.utf8_lpad(pc.cast(pa.array(np.arange(rows)), pa.string()), 6, "0"), "")
-    logs = pa.table([
-        ids, pa.array(ts_us, pa.timestamp("us")),
-        _names(["v1", "v2"], v2.astype(np.int8)), _names(sc.REGIONS, region),
-        _names(sc.CHANNELS, channel), _names(sc.TIERS, tier), _logits_array(logits, null),
-    ], schema=LOGS_SCHEMA)
+        f"rt-{day:%Y%m%d}-",
+        pc.utf8_lpad(pc.cast(pa.array(np.arange(rows)), pa.string()), 6, "0"),
+        "",
+    )
+    logs = pa.table(
+        [
+            ids,
+            pa.array(ts_us, pa.timestamp("us")),
+            _names(["v1", "v2"], v2.astype(np.int8)),
+            _names(sc.REGIONS, region),
+            _names(sc.CHANNELS, channel),
+            _names(sc.TIERS, tier),
+            _logits_array(logits, null),
+        ],
+        schema=LOGS_SCHEMA,
+    )
     return logs, _labels(rng, ids, ts_us, y, _epoch_us(as_of))

@@ -90,8 +90,9 @@ def population_stability_index(actual: np.ndarray, expected: np.ndarray) -> np.n
 
     No smoothing here; callers that compare sparse histograms smooth the counts first.
     """
-    return clipped(xlogy_ratio(actual, expected).sum(axis=1)
-                   + xlogy_ratio(expected, actual).sum(axis=1))
+    return clipped(
+        xlogy_ratio(actual, expected).sum(axis=1) + xlogy_ratio(expected, actual).sum(axis=1)
+    )
 
 
 def clipped(d: np.ndarray, high: float = np.inf) -> np.ndarray:

@@ -1,11 +1,11 @@
 """Per-row prediction summaries from probability rows (n, K).
 
-    predicted class = first argmax_j p_j (0-based; ties go to the lowest index)
-    confidence      = max_j p_j
-    margin          = top-1 minus top-2 probability (1 when K = 1)
-    calibration bin = m (0-based) with edge_m < c <= edge_{m+1}, edges = linspace(0, 1, B + 1);
-                      c = 0 falls in bin 0; c outside [0, 1] or NaN -> -1 (NULL in SQL).
-                      Identical to sklearn.calibration.calibration_curve's binning.
+predicted class = first argmax_j p_j (0-based; ties go to the lowest index)
+confidence      = max_j p_j
+margin          = top-1 minus top-2 probability (1 when K = 1)
+calibration bin = m (0-based) with edge_m < c <= edge_{m+1}, edges = linspace(0, 1, B + 1);
+                  c = 0 falls in bin 0; c outside [0, 1] or NaN -> -1 (NULL in SQL).
+                  Identical to sklearn.calibration.calibration_curve's binning.
 """
 
 import numpy as np

@@ -98,8 +98,18 @@ def assemble(score_issue, y, y_present, lengths, pt, conf, pred, loss, entropy, 
     if not scored.all():
         for a in (conf, entropy):
             a[~scored] = np.nan
-    return RowStats(score_issue, label_issue, lengths.astype(np.int32), loss, conf, pred,
-                    correct, brier, entropy, calibration_bin(conf, bins))
+    return RowStats(
+        score_issue,
+        label_issue,
+        lengths.astype(np.int32),
+        loss,
+        conf,
+        pred,
+        correct,
+        brier,
+        entropy,
+        calibration_bin(conf, bins),
+    )
 
 
 def logit_row_stats(z, present, lengths, y, y_present, bins) -> RowStats:
@@ -143,8 +153,9 @@ def prob_row_stats(p, present, lengths, y, y_present, bins) -> RowStats:
     finite = np.isfinite(total)
     with np.errstate(invalid="ignore"):
         is_dist = finite & (np.abs(total - 1.0) <= SUM_TOLERANCE) & (pt.min(axis=0) >= 0)
-    score_issue = np.where(present, np.where(finite, np.where(is_dist, 0, NOT_A_DISTRIBUTION),
-                                                      INVALID), MISSING).astype(np.int8)
+    score_issue = np.where(
+        present, np.where(finite, np.where(is_dist, 0, NOT_A_DISTRIBUTION), INVALID), MISSING
+    ).astype(np.int8)
     with np.errstate(invalid="ignore", divide="ignore"):
         pt /= np.where(is_dist, total, np.nan)
         logp = np.log(pt)
@@ -152,5 +163,6 @@ def prob_row_stats(p, present, lengths, y, y_present, bins) -> RowStats:
         loss = 0.0 - logp[np.clip(y, 0, pt.shape[0] - 1), cols]
         entropy = 0.0 - np.einsum("ij,ij->j", pt, np.where(pt > 0, logp, 0.0))
         conf = pt.max(axis=0)
-    return assemble(score_issue, y, y_present, lengths, pt, conf, first_argmax(pt, conf),
-                    loss, entropy, bins)
+    return assemble(
+        score_issue, y, y_present, lengths, pt, conf, first_argmax(pt, conf), loss, entropy, bins
+    )

@@ -10,7 +10,6 @@ A row with NaN or +inf, or whose classes are all masked, is undefined: NaN.
 
 import numpy as np
 
-
 SHORT_AXIS = 32
 
 
@@ -48,7 +47,9 @@ def class_sum(e: np.ndarray, axis: int) -> np.ndarray:
     for start in range(8, full, 8):
         for j in range(8):
             lanes[j] += col(start + j)
-    total = ((lanes[0] + lanes[1]) + (lanes[2] + lanes[3])) + ((lanes[4] + lanes[5]) + (lanes[6] + lanes[7]))
+    total = ((lanes[0] + lanes[1]) + (lanes[2] + lanes[3])) + (
+        (lanes[4] + lanes[5]) + (lanes[6] + lanes[7])
+    )
     for j in range(full, k):
         total += col(j)
     return total
@@ -90,7 +91,7 @@ def logsumexp(z: np.ndarray) -> np.ndarray:
     """log(sum(exp(z))) per row; NaN for undefined rows.
 
     >>> float(logsumexp(np.array([[1.0, 2.0, 3.0]]))[0])
-    3.40760596444438
+    3.4076059644443806
     """
     _, _, s, m, ok = shifted(z)
     with np.errstate(divide="ignore", invalid="ignore"):

@@ -3,7 +3,7 @@ rescan what they have already summarised.
 
     update(con, params, store, ...)      compute new (and recently relabelled) days, replace them
     describe(store)                      what the store holds
-    store_fragments(texts)               the {{state}} / {{class_state}} SQL the templates use
+    store_fragments(texts)               the {{state}} / {{class_state}} SQL the saved queries use
                                          when a query is given `partials=STORE`
 """
 
@@ -11,4 +11,4 @@ from .fragments import store_fragments
 from .store import Store, describe
 from .update import update
 
-__all__ = ["update", "describe", "store_fragments", "Store"]
+__all__ = ["Store", "describe", "store_fragments", "update"]

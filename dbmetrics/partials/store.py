@@ -1,7 +1,7 @@
 """Layout of a partials store and its all-or-nothing updates.
 
-    STORE/manifest.json                     column map, generation, and the file of each day
-    STORE/state/YYYY-MM-DD.G.parquet        STATE rows of that day (see templates/prelude.py)
+    STORE/manifest.json                     column roles, generation, and the file of each day
+    STORE/state/YYYY-MM-DD.G.parquet        STATE rows of that day (see queries/state_sql.py)
     STORE/class_state/YYYY-MM-DD.G.parquet  CLASS_STATE rows of that day
 
 An update writes new files under a new generation G, then replaces manifest.json in one
@@ -54,10 +54,14 @@ class Store:
         try:
             data = json.loads(self.manifest_path.read_text())
         except ValueError as exc:
-            raise DbmetricsError(f"partials: {self.manifest_path} is not valid JSON ({exc})") from None
+            raise DbmetricsError(
+                f"partials: {self.manifest_path} is not valid JSON ({exc})"
+            ) from None
         if not isinstance(data, dict) or data.get("format") != FORMAT:
-            raise DbmetricsError(f"partials: {self.manifest_path} is not a dbmetrics partials "
-                                 f"manifest (expected format {FORMAT})")
+            raise DbmetricsError(
+                f"partials: {self.manifest_path} is not a dbmetrics partials "
+                f"manifest (expected format {FORMAT})"
+            )
         return data
 
     def days(self) -> list:
@@ -67,7 +71,9 @@ class Store:
     def files(self, kind: str) -> list:
         """Absolute paths of every day's file of `kind`, from the manifest."""
         manifest = self.manifest() or {}
-        return [str(self.root / entry[kind]) for _, entry in sorted(manifest.get("days", {}).items())]
+        return [
+            str(self.root / entry[kind]) for _, entry in sorted(manifest.get("days", {}).items())
+        ]
 
     def write_day(self, kind: str, day: dt.date, generation: int, table: pa.Table) -> str:
         """Write a day's table under a new name; returns its path relative to the root."""
@@ -88,8 +94,9 @@ class Store:
         self.remove_unlisted([manifest, previous])
 
     def remove_unlisted(self, manifests: list) -> None:
-        listed = {entry[kind] for m in manifests for entry in m.get("days", {}).values()
-                  for kind in KINDS}
+        listed = {
+            entry[kind] for m in manifests for entry in m.get("days", {}).values() for kind in KINDS
+        }
         for kind in KINDS:
             folder = self.root / kind
             if folder.is_dir():
@@ -105,10 +112,16 @@ def describe(store) -> dict:
     s = Store(Path(store))
     manifest = s.manifest()
     if manifest is None:
-        raise DbmetricsError(f"partials: `{store}` holds no store (no manifest.json); "
-                             "build one with `dbmetrics partials update`")
+        raise DbmetricsError(
+            f"partials: `{store}` holds no store (no manifest.json); "
+            "build one with `dbmetrics partials update`"
+        )
     days = s.days()
-    return {"store": str(s.root), "generation": manifest["generation"], "days": len(days),
-            "first_day": days[0].isoformat() if days else None,
-            "last_day": days[-1].isoformat() if days else None,
-            **{f"column_map.{k}": v for k, v in manifest["column_map"].items()}}
+    return {
+        "store": str(s.root),
+        "generation": manifest["generation"],
+        "days": len(days),
+        "first_day": days[0].isoformat() if days else None,
+        "last_day": days[-1].isoformat() if days else None,
+        **{f"column_roles.{k}": v for k, v in manifest["column_roles"].items()},
+    }

@@ -16,5 +16,14 @@ from .rows import keep_rows
 from .style import HEIGHT, WIDTH, png_bytes, require_matplotlib
 from .trend import trend_figure
 
-__all__ = ["reliability_figure", "trend_figure", "png_bytes", "pool_bins", "Pooled", "keep_rows",
-           "require_matplotlib", "WIDTH", "HEIGHT"]
+__all__ = [
+    "HEIGHT",
+    "WIDTH",
+    "Pooled",
+    "keep_rows",
+    "png_bytes",
+    "pool_bins",
+    "reliability_figure",
+    "require_matplotlib",
+    "trend_figure",
+]

@@ -33,23 +33,38 @@ class Pooled:
 
     @property
     def ece(self) -> float:
-        return float(np.sum(self.rows * np.abs(self.accuracy - self.mean_confidence)) / self.rows.sum())
+        return float(
+            np.sum(self.rows * np.abs(self.accuracy - self.mean_confidence)) / self.rows.sum()
+        )
 
 
 def pool_bins(calibration: pa.Table, by: str) -> list[Pooled]:
     """Sum the calibration query's bin rows per value of ``by``; groups in sorted order."""
-    columns = {c: calibration[c].to_numpy(zero_copy_only=False)
-               for c in ("bin", "bin_lower", "bin_upper", "rows", "mean_confidence", "accuracy")}
+    columns = {
+        c: calibration[c].to_numpy(zero_copy_only=False)
+        for c in ("bin", "bin_lower", "bin_upper", "rows", "mean_confidence", "accuracy")
+    }
     groups = np.array([text(v) for v in calibration[by].to_pylist()], dtype=object)
     pooled = []
     for group in sorted(set(groups)):
         at = groups == group
         bins, index = np.unique(columns["bin"][at], return_inverse=True)
         rows = np.bincount(index, weights=columns["rows"][at], minlength=len(bins))
-        confidence = np.bincount(index, weights=(columns["rows"] * columns["mean_confidence"])[at],
-                                 minlength=len(bins))
-        correct = np.bincount(index, weights=(columns["rows"] * columns["accuracy"])[at], minlength=len(bins))
+        confidence = np.bincount(
+            index, weights=(columns["rows"] * columns["mean_confidence"])[at], minlength=len(bins)
+        )
+        correct = np.bincount(
+            index, weights=(columns["rows"] * columns["accuracy"])[at], minlength=len(bins)
+        )
         first = np.unique(index, return_index=True)[1]
-        pooled.append(Pooled(group, columns["bin_lower"][at][first], columns["bin_upper"][at][first],
-                             rows.astype(np.int64), confidence / rows, correct / rows))
+        pooled.append(
+            Pooled(
+                group,
+                columns["bin_lower"][at][first],
+                columns["bin_upper"][at][first],
+                rows.astype(np.int64),
+                confidence / rows,
+                correct / rows,
+            )
+        )
     return pooled

@@ -11,27 +11,50 @@ from dbmetrics.plots.rows import split_keys
 from dbmetrics.plots.style import GREY, HATCHES, new_figure, series_style, tidy
 
 
-def reliability_figure(calibration: pa.Table, by: str, keys: tuple[str, ...] = (), title: str | None = None):
+def reliability_figure(
+    calibration: pa.Table, by: str, keys: tuple[str, ...] = (), title: str | None = None
+):
     """A Figure from the ``calibration`` query's result: one curve per value of ``by``, its bins
     pooled over every period and over the other group columns ``keys`` (version, segments)."""
     if calibration.num_rows == 0:
-        raise DbmetricsError("nothing to plot: no calibration rows (none evaluated, e.g. no labels: "
-                             "--set labels=... --set id_col=...; or the row filters kept none)")
+        raise DbmetricsError(
+            "nothing to plot: no calibration rows (none evaluated, e.g. no labels: "
+            "--set labels=... --set id_col=...; or the row filters kept none)"
+        )
     groups = pool_bins(calibration, by)
     figure = new_figure()
     curve, counts = figure.subplots(2, 1, sharex=True, height_ratios=[3, 1])
-    curve.plot([0, 1], [0, 1], color=GREY, linestyle=(0, (4, 3)), linewidth=1, label="perfectly calibrated")
+    curve.plot(
+        [0, 1], [0, 1], color=GREY, linestyle=(0, (4, 3)), linewidth=1, label="perfectly calibrated"
+    )
     width = (groups[0].bin_upper - groups[0].bin_lower).min() / (len(groups) + 1)
     for i, group in enumerate(groups):
         style = series_style(i)
-        curve.plot(group.mean_confidence, group.accuracy, markersize=5, linewidth=1.6, clip_on=False, **style,
-                   label=f"{group.group}: ECE {group.ece:.3f}, {group.evaluated_rows:,} rows")
+        curve.plot(
+            group.mean_confidence,
+            group.accuracy,
+            markersize=5,
+            linewidth=1.6,
+            clip_on=False,
+            **style,
+            label=f"{group.group}: ECE {group.ece:.3f}, {group.evaluated_rows:,} rows",
+        )
         left = group.bin_lower + width * (i + 0.5)
-        counts.bar(left, group.rows / group.rows.sum(), width=width, align="edge", color=style["color"],
-                   hatch=HATCHES[i % len(HATCHES)], edgecolor="white", linewidth=0.4)
+        counts.bar(
+            left,
+            group.rows / group.rows.sum(),
+            width=width,
+            align="edge",
+            color=style["color"],
+            hatch=HATCHES[i % len(HATCHES)],
+            edgecolor="white",
+            linewidth=0.4,
+        )
     curve.set(xlim=(0, 1), ylim=(0, 1), ylabel="accuracy (share correct)")
     curve.legend(loc="upper left", title=by, fontsize=8, title_fontsize=8, frameon=False)
-    counts.set(xlabel="mean top-label confidence in the bin (probability)", ylabel="share of its rows")
+    counts.set(
+        xlabel="mean top-label confidence in the bin (probability)", ylabel="share of its rows"
+    )
     counts.set_ylim(0, None)
     for ax in (curve, counts):
         tidy(ax)

@@ -10,16 +10,21 @@ import pyarrow.compute as pc
 from dbmetrics.errors import DbmetricsError
 
 
-def keep_rows(table: pa.Table, equal: dict[str, str], start: dt.date | None = None,
-              end: dt.date | None = None) -> pa.Table:
+def keep_rows(
+    table: pa.Table, equal: dict[str, str], start: dt.date | None = None, end: dt.date | None = None
+) -> pa.Table:
     """Rows whose COLUMN, as text, equals VALUE for every item of ``equal`` and whose
     ``period`` (first day of the period) lies in [start, end]; either end may be open."""
     mask = pa.array([True] * table.num_rows, pa.bool_())
     for column, value in equal.items():
         if column not in table.column_names:
-            raise DbmetricsError(f"--only: the result has no column '{column}'; "
-                                 f"columns are: {', '.join(table.column_names)}")
-        mask = pc.and_(mask, pc.fill_null(pc.equal(pc.cast(table[column], pa.string()), value), False))
+            raise DbmetricsError(
+                f"--only: the result has no column '{column}'; "
+                f"columns are: {', '.join(table.column_names)}"
+            )
+        mask = pc.and_(
+            mask, pc.fill_null(pc.equal(pc.cast(table[column], pa.string()), value), False)
+        )
     if start is not None:
         mask = pc.and_(mask, pc.greater_equal(table["period"], pa.scalar(start, pa.date32())))
     if end is not None:

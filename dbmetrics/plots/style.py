@@ -44,8 +44,11 @@ def new_figure():
 
 def series_style(i: int) -> dict:
     """Colour, marker and line style of the i-th series."""
-    return {"color": COLOURS[i % len(COLOURS)], "marker": MARKERS[i % len(MARKERS)],
-            "linestyle": LINESTYLES[i % len(LINESTYLES)]}
+    return {
+        "color": COLOURS[i % len(COLOURS)],
+        "marker": MARKERS[i % len(MARKERS)],
+        "linestyle": LINESTYLES[i % len(LINESTYLES)],
+    }
 
 
 def tidy(ax) -> None:

@@ -18,8 +18,14 @@ BARS = f"bars: 95% interval (±{Z95} SE)"
 INSIDE_LEGEND = 4  # at most this many lines: legend inside the axes, else beside them
 
 
-def trend_figure(result: pa.Table, metric: str, by: str, keys: tuple[str, ...] = (),
-                 grain: str = "week", title: str | None = None):
+def trend_figure(
+    result: pa.Table,
+    metric: str,
+    by: str,
+    keys: tuple[str, ...] = (),
+    grain: str = "week",
+    title: str | None = None,
+):
     """A Figure of ``metric`` over ``period``, one line per value of ``by``.
 
     ``keys``: the result's other group columns (version, segments); where they take more than
@@ -30,7 +36,9 @@ def trend_figure(result: pa.Table, metric: str, by: str, keys: tuple[str, ...] =
     others, fixed = split_keys(result, keys, by)
     periods = np.array(result["period"].to_pylist(), dtype="datetime64[D]")
     values = _floats(result[metric])
-    errors = Z95 * _floats(result[f"{metric}_se"]) if f"{metric}_se" in result.column_names else None
+    errors = (
+        Z95 * _floats(result[f"{metric}_se"]) if f"{metric}_se" in result.column_names else None
+    )
     lines = _lines(result, [by, *others])
     by_values = sorted({line[0] for line in lines}, key=text)
     other_values = sorted({line[1:] for line in lines}, key=lambda v: tuple(map(text, v)))
@@ -38,21 +46,30 @@ def trend_figure(result: pa.Table, metric: str, by: str, keys: tuple[str, ...] =
     figure = new_figure()
     ax = figure.subplots()
     notes = []
-    if "in_reference" in result.column_names and _shade_reference(ax, periods, _bools(result["in_reference"])):
+    if "in_reference" in result.column_names and _shade_reference(
+        ax, periods, _bools(result["in_reference"])
+    ):
         notes.append(REFERENCE)
     for line, at in lines.items():
         i = by_values.index(line[0])
         j = other_values.index(line[1:]) if others else i
         order = np.argsort(periods[at])
         x, y = periods[at][order], values[at][order]
-        style = {"color": COLOURS[i % len(COLOURS)], "marker": MARKERS[i % len(MARKERS)],
-                 "linestyle": LINESTYLES[j % len(LINESTYLES)], "markersize": 4, "linewidth": 1.5,
-                 "label": ", ".join(map(text, line))}
+        style = {
+            "color": COLOURS[i % len(COLOURS)],
+            "marker": MARKERS[i % len(MARKERS)],
+            "linestyle": LINESTYLES[j % len(LINESTYLES)],
+            "markersize": 4,
+            "linewidth": 1.5,
+            "label": ", ".join(map(text, line)),
+        }
         if errors is None:
             ax.plot(x, y, **style)
         else:
             ax.errorbar(x, y, yerr=errors[at][order], capsize=2, elinewidth=0.8, **style)
-    if "flagged" in result.column_names and _ring_flagged(ax, periods, values, _bools(result["flagged"])):
+    if "flagged" in result.column_names and _ring_flagged(
+        ax, periods, values, _bools(result["flagged"])
+    ):
         notes.append(FLAGGED)
     if errors is not None:
         ax.plot([], [], " ", label=BARS)
@@ -67,16 +84,25 @@ def trend_figure(result: pa.Table, metric: str, by: str, keys: tuple[str, ...] =
 
 
 def _check(result: pa.Table, metric: str, by: str) -> None:
-    numeric = [f.name for f in result.schema
-               if (pa.types.is_integer(f.type) or pa.types.is_floating(f.type)) and f.name != by]
+    numeric = [
+        f.name
+        for f in result.schema
+        if (pa.types.is_integer(f.type) or pa.types.is_floating(f.type)) and f.name != by
+    ]
     if metric not in numeric:
-        raise DbmetricsError(f"--metric: the result has no numeric column '{metric}'; "
-                             f"numeric columns are: {', '.join(numeric)}")
+        raise DbmetricsError(
+            f"--metric: the result has no numeric column '{metric}'; "
+            f"numeric columns are: {', '.join(numeric)}"
+        )
     if by not in result.column_names:
-        raise DbmetricsError(f"--by: the result has no column '{by}'; columns are: {', '.join(result.column_names)}")
+        raise DbmetricsError(
+            f"--by: the result has no column '{by}'; columns are: {', '.join(result.column_names)}"
+        )
     if result.num_rows == 0 or result[metric].null_count == result.num_rows:
-        raise DbmetricsError(f"nothing to plot: '{metric}' has no values (labelled metrics need labels: "
-                             "--set labels=... --set id_col=...; or the row filters kept no rows)")
+        raise DbmetricsError(
+            f"nothing to plot: '{metric}' has no values (labelled metrics need labels: "
+            "--set labels=... --set id_col=...; or the row filters kept no rows)"
+        )
 
 
 def _floats(column) -> np.ndarray:
@@ -101,8 +127,13 @@ def _shade_reference(ax, periods: np.ndarray, in_reference: np.ndarray) -> bool:
     hours = periods.astype("datetime64[h]")
     distinct = np.unique(hours)
     step = np.diff(distinct).min() if len(distinct) > 1 else np.timedelta64(24, "h")
-    ax.axvspan(hours[in_reference].min() - step / 2, hours[in_reference].max() + step / 2,
-               color="#e8e8e8", zorder=0, label=REFERENCE)
+    ax.axvspan(
+        hours[in_reference].min() - step / 2,
+        hours[in_reference].max() + step / 2,
+        color="#e8e8e8",
+        zorder=0,
+        label=REFERENCE,
+    )
     return True
 
 
@@ -110,8 +141,16 @@ def _ring_flagged(ax, periods: np.ndarray, values: np.ndarray, flagged: np.ndarr
     """A black ring around every flagged point, one legend entry for all; False if none."""
     if not flagged.any():
         return False
-    ax.scatter(periods[flagged], values[flagged], s=110, facecolors="none", edgecolors="black",
-               linewidths=1.3, zorder=5, label=FLAGGED)
+    ax.scatter(
+        periods[flagged],
+        values[flagged],
+        s=110,
+        facecolors="none",
+        edgecolors="black",
+        linewidths=1.3,
+        zorder=5,
+        label=FLAGGED,
+    )
     return True
 
 
@@ -123,8 +162,15 @@ def _legend(figure, ax, title: str, notes: list[str], lines: int) -> None:
     if lines <= INSIDE_LEGEND:
         ax.legend(handles, labels, loc="best", fontsize=8, title=title, title_fontsize=8)
     else:
-        figure.legend(handles, labels, loc="outside right upper", fontsize=8, frameon=False,
-                      title=title, title_fontsize=8)
+        figure.legend(
+            handles,
+            labels,
+            loc="outside right upper",
+            fontsize=8,
+            frameon=False,
+            title=title,
+            title_fontsize=8,
+        )
 
 
 def _date_axis(ax) -> None:

@@ -13,7 +13,7 @@
 -- param id_col (column): prediction id present in both logs and labels (needed with labels)
 -- param classes (text): class names in class-index order, comma-separated, for labels stored as text; an unknown name is a bad label
 -- param bins (integer(1..1000), default 15): equal-width confidence bins, bin m holds m/B < c <= (m+1)/B (0 in bin 0)
--- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column map must cover version_col and segment_cols
+-- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column roles must cover version_col and segment_cols
 -- output period: first day of the period
 -- output rows: then every other rollup column, as documented in the rollup query
 -- note: after the rollup columns come the business table's other columns, NULL for segments it lacks.

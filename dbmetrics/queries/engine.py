@@ -4,7 +4,7 @@ DuckDB calls a vectorized Python UDF once per 2048 rows, and at small K the fixe
 each call outweighs the arithmetic. Here the normalised `predictions` stream out of DuckDB
 in batches of BATCH_ROWS, the row-statistics kernel behind `logit_row_stats` /
 `prob_row_stats` runs once per batch, and DuckDB sums the rows into STATE with the very SQL
-of `prelude.state`; the per-class sums are added up per batch in numpy and then by
+of `state_sql.state`; the per-class sums are added up per batch in numpy and then by
 DuckDB. Same kernels, same sums: the result equals the UDF route's up to rounding.
 """
 
@@ -20,8 +20,9 @@ from dbmetrics.kernels.softmax import softmax
 from dbmetrics.udf_adapters import LOGITS_PAD, PROBS_PAD, ROW_STATS_TYPE, row_stats_struct
 
 from .header import bound_values
-from .prelude import KINDS, ColumnMap, class_state, predictions, state
+from .roles import KINDS, ColumnRoles
 from .schema import quote
+from .state_sql import class_state, predictions, state
 
 BATCH_ROWS = 16384
 BATCH_VALUES = 1 << 21
@@ -31,8 +32,10 @@ ROWS_VIEW = "dbmetrics_row_stats"
 CLASSES_VIEW = "dbmetrics_class_partials"
 STATE_VIEW = "dbmetrics_state"
 CLASS_STATE_VIEW = "dbmetrics_class_state"
-KERNELS = {"logit_row_stats": (row_stats.logit_row_stats, LOGITS_PAD),
-           "prob_row_stats": (row_stats.prob_row_stats, PROBS_PAD)}
+KERNELS = {
+    "logit_row_stats": (row_stats.logit_row_stats, LOGITS_PAD),
+    "prob_row_stats": (row_stats.prob_row_stats, PROBS_PAD),
+}
 DISTRIBUTIONS = {"logit_row_stats": softmax, "prob_row_stats": as_distribution}
 
 
@@ -51,8 +54,10 @@ def with_row_stats(batch: pa.RecordBatch, st) -> pa.RecordBatch:
     """The batch with `scores` replaced by the `stats` struct the UDF would return."""
     stats = row_stats_struct(st)
     keep = [i for i, name in enumerate(batch.schema.names) if name != "scores"]
-    return pa.RecordBatch.from_arrays([batch.column(i) for i in keep] + [stats],
-                                      names=[batch.schema.names[i] for i in keep] + ["stats"])
+    return pa.RecordBatch.from_arrays(
+        [batch.column(i) for i in keep] + [stats],
+        names=[batch.schema.names[i] for i in keep] + ["stats"],
+    )
 
 
 def group_ids(columns: list) -> np.ndarray:
@@ -89,22 +94,34 @@ def class_partials(batch: pa.RecordBatch, sm, st, distribution, keys: list) -> p
     g, c = np.nonzero(np.arange(k)[None, :] < longest[:, None])
     first = pa.array(rows[order[starts]][g])
     out = {name: batch.column(name).take(first) for name in ["day", *keys]}
-    out.update({"class": pa.array(c, pa.int64()), "sum_prob": pa.array(sums[g, c]),
-                "predicted_rows": pa.array(predicted.reshape(n_groups, k)[g, c]),
-                "label_rows": pa.array(labels.reshape(n_groups, k)[g, c])})
+    out.update(
+        {
+            "class": pa.array(c, pa.int64()),
+            "sum_prob": pa.array(sums[g, c]),
+            "predicted_rows": pa.array(predicted.reshape(n_groups, k)[g, c]),
+            "label_rows": pa.array(labels.reshape(n_groups, k)[g, c]),
+        }
+    )
     return pa.table(out)
 
 
-def compute_states(con: duckdb.DuckDBPyConnection, cmap: ColumnMap, values: dict,
-                   window: bool = False, classes: bool = False) -> tuple:
+def compute_states(
+    con: duckdb.DuckDBPyConnection,
+    roles: ColumnRoles,
+    values: dict,
+    window: bool = False,
+    classes: bool = False,
+) -> tuple:
     """(STATE, CLASS_STATE or None) for the log (or the time window) as Arrow tables, from
     one scan; memory stays one batch plus the small per-batch class sums."""
-    kernel_name = KINDS[cmap.kind][0]
+    kernel_name = KINDS[roles.kind][0]
     kernel, pad = KERNELS[kernel_name]
     distribution = DISTRIBUTIONS[kernel_name]
-    keys = [cmap.version, *cmap.segments]
-    source_sql = predictions(cmap, window)
-    reader = con.sql(source_sql, params=bound_values(source_sql, values)).to_arrow_reader(BATCH_ROWS)
+    keys = [roles.version, *roles.segments]
+    source_sql = predictions(roles, window)
+    reader = con.sql(source_sql, params=bound_values(source_sql, values)).to_arrow_reader(
+        BATCH_ROWS
+    )
     fields = [f for f in reader.schema if f.name != "scores"] + [pa.field("stats", ROW_STATS_TYPE)]
     per_batch = []
 
@@ -120,9 +137,11 @@ def compute_states(con: duckdb.DuckDBPyConnection, cmap: ColumnMap, values: dict
     cursor = con.cursor()  # the streaming result above keeps `con` busy
     try:
         cursor.register(ROWS_VIEW, pa.RecordBatchReader.from_batches(pa.schema(fields), batches()))
-        state_sql = state(cmap, rows=ROWS_VIEW)
+        state_sql = state(roles, rows=ROWS_VIEW)
         state_table = cursor.sql(state_sql, params=bound_values(state_sql, values)).to_arrow_table()
-        return state_table, summed_classes(cursor, per_batch, cmap, reader.schema) if classes else None
+        return state_table, summed_classes(
+            cursor, per_batch, roles, reader.schema
+        ) if classes else None
     except (duckdb.Error, pa.ArrowException):
         # An error inside the stream (a corrupt file, a bad cast) reaches us wrapped and
         # without its context; the UDF route over the same SQL reports it as DuckDB words it.
@@ -130,23 +149,35 @@ def compute_states(con: duckdb.DuckDBPyConnection, cmap: ColumnMap, values: dict
     finally:
         cursor.close()
         reader.close()
-    udf_state, udf_classes = state(cmap, window), class_state(cmap, window)
-    return (con.sql(udf_state, params=bound_values(udf_state, values)).to_arrow_table(),
-            con.sql(udf_classes, params=bound_values(udf_classes, values)).to_arrow_table()
-            if classes else None)
+    udf_state, udf_classes = state(roles, window), class_state(roles, window)
+    return (
+        con.sql(udf_state, params=bound_values(udf_state, values)).to_arrow_table(),
+        con.sql(udf_classes, params=bound_values(udf_classes, values)).to_arrow_table()
+        if classes
+        else None,
+    )
 
 
-def summed_classes(cursor, per_batch: list, cmap: ColumnMap, schema: pa.Schema) -> pa.Table:
+def summed_classes(cursor, per_batch: list, roles: ColumnRoles, schema: pa.Schema) -> pa.Table:
     """The per-batch class sums added up per day x keys x class."""
     parts = [t for t in per_batch if t is not None]
     if not parts:  # no scored row at all: no class rows, with the right columns
-        parts = [pa.table({**{name: pa.array([], schema.field(name).type)
-                              for name in ["day", cmap.version, *cmap.segments]},
-                           "class": pa.array([], pa.int64()), "sum_prob": pa.array([], pa.float64()),
-                           "predicted_rows": pa.array([], pa.int64()),
-                           "label_rows": pa.array([], pa.int64())})]
+        parts = [
+            pa.table(
+                {
+                    **{
+                        name: pa.array([], schema.field(name).type)
+                        for name in ["day", roles.version, *roles.segments]
+                    },
+                    "class": pa.array([], pa.int64()),
+                    "sum_prob": pa.array([], pa.float64()),
+                    "predicted_rows": pa.array([], pa.int64()),
+                    "label_rows": pa.array([], pa.int64()),
+                }
+            )
+        ]
     cursor.register(CLASSES_VIEW, pa.concat_tables(parts, promote_options="permissive"))
-    return cursor.sql(f"""SELECT day, {cmap.keys}, class,
+    return cursor.sql(f"""SELECT day, {roles.keys}, class,
     fsum(sum_prob) AS sum_prob,
     sum(predicted_rows)::BIGINT AS predicted_rows,
     sum(label_rows)::BIGINT AS label_rows
@@ -154,22 +185,24 @@ FROM {CLASSES_VIEW}
 GROUP BY ALL""").to_arrow_table()
 
 
-def engine_pays(con, cmap: ColumnMap, bound: dict, classes: bool) -> bool:
+def engine_pays(con, roles: ColumnRoles, bound: dict, classes: bool) -> bool:
     """Whether the engine beats one UDF call per 2048 rows (measured, bench/README.md): for
     the class state always (the UDF route unnests every probability), for STATE alone when
     the rows are short (K <= SHORT_K, judged on the first rows), since DuckDB runs the UDF on
     every core while the engine's numpy runs on one."""
-    if classes or cmap.kind.startswith("binary_"):
+    if classes or roles.kind.startswith("binary_"):
         return True
-    sql = (f"SELECT max(len(s)) FROM (SELECT logs.{quote(cmap.scores)} AS s "
-           f"FROM {cmap.logs.sql} AS logs LIMIT 2048)")
+    sql = (
+        f"SELECT max(len(s)) FROM (SELECT logs.{quote(roles.scores)} AS s "
+        f"FROM {roles.logs.sql} AS logs LIMIT 2048)"
+    )
     k = con.sql(sql, params=bound_values(sql, bound)).fetchall()[0][0]
     return k is None or k <= SHORT_K
 
 
-def materialized_states(con, cmap: ColumnMap, values: dict, classes: bool) -> dict:
+def materialized_states(con, roles: ColumnRoles, values: dict, classes: bool) -> dict:
     """Compute STATE (and CLASS_STATE), register them on `con`, return the SQL reading them."""
-    state_table, class_table = compute_states(con, cmap, values, classes=classes)
+    state_table, class_table = compute_states(con, roles, values, classes=classes)
     con.register(STATE_VIEW, state_table)
     fragments = {"state": f"SELECT * FROM {STATE_VIEW}"}
     if classes:

@@ -1,5 +1,5 @@
-"""Find saved queries: ours (dbmetrics/sql) and the user's, from folders passed in and from
-DBMETRICS_QUERY_PATH (os.pathsep-separated).
+"""Find saved queries: ours (the top-level sql/ folder, shipped in the wheel as dbmetrics/sql)
+and the user's, from folders passed in and from DBMETRICS_QUERY_PATH (os.pathsep-separated).
 
 A user's query may not reuse the name of a built-in one, nor two user folders hold the same
 name: either is an error that names both files (an override would silently change what a
@@ -13,7 +13,20 @@ from dbmetrics.errors import DbmetricsError
 
 from .header import QueryInfo, parse_query
 
-BUILT_IN = Path(__file__).resolve().parent.parent / "sql"
+
+def _built_in_folder() -> Path:
+    """The copy a wheel ships inside the package, else sql/ beside the package (a source
+    checkout or an editable install)."""
+    package = Path(__file__).resolve().parent.parent
+    for folder in (package / "sql", package.parent / "sql"):
+        if (folder / "rollup.sql").is_file():
+            return folder
+    raise DbmetricsError(
+        f"the saved queries are missing: no sql/ folder beside or inside {package}"
+    )
+
+
+BUILT_IN = _built_in_folder()
 ENV_VAR = "DBMETRICS_QUERY_PATH"
 
 
@@ -29,8 +42,10 @@ def user_dirs(query_dirs=None) -> list:
             raise DbmetricsError(f"query folder `{text}` is not a usable path ({exc})") from None
         dirs.append(d)
         if not exists:
-            raise DbmetricsError(f"query folder `{d}` does not exist or is not a folder "
-                                 f"(from query_dirs or {ENV_VAR}); create it or drop it")
+            raise DbmetricsError(
+                f"query folder `{d}` does not exist or is not a folder "
+                f"(from query_dirs or {ENV_VAR}); create it or drop it"
+            )
     return dirs
 
 
@@ -46,7 +61,8 @@ def list_queries(query_dirs=None) -> list:
             if info.name in found:
                 raise DbmetricsError(
                     f"query `{info.name}` is defined twice: {found[info.name].path} and {path}; "
-                    "rename the user query (built-in names cannot be overridden)")
+                    "rename the user query (built-in names cannot be overridden)"
+                )
             found[info.name] = info
     return list(found.values())
 

@@ -11,64 +11,94 @@ import duckdb
 from dbmetrics.errors import DbmetricsError
 
 from .catalog import get_query
-from .header import COLUMN_MAP, PLACEHOLDER, QueryInfo, bound_values
-from .prelude import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS, column_map, fragments
 from .engine import engine_pays, materialized_states
+from .header import COLUMN_MAP, PLACEHOLDER, QueryInfo, bound_values
+from .roles import column_roles
 from .schema import open_source, quote
+from .state_sql import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS, fragments
 from .values import convert, split_names, with_defaults
-
 
 ALIAS = re.compile(r"\bAS\s+([a-z_][a-z0-9_]*)\b")  # lower-case aliases; SQL types are upper-case
 
 
-def render_query(con: duckdb.DuckDBPyConnection, name: str, params: dict,
-                 query_dirs=None, materialize: bool = False) -> tuple:
+def render_query(
+    con: duckdb.DuckDBPyConnection,
+    name: str,
+    params: dict,
+    query_dirs=None,
+    materialize: bool = False,
+) -> tuple:
     """(sql, bound): the query's SQL and the values for exactly the `$names` it uses."""
     info = get_query(name, query_dirs)
-    included = [get_query(n[len("query:"):], query_dirs)
-                for n in PLACEHOLDER.findall(info.body) if n.startswith("query:")]
+    included = [
+        get_query(n[len("query:") :], query_dirs)
+        for n in PLACEHOLDER.findall(info.body)
+        if n.startswith("query:")
+    ]
     for inner in included:
         missing = [p.name for p in inner.params if p.name not in {q.name for q in info.params}]
         if missing:
-            raise DbmetricsError(f"{info.path}: includes query `{inner.name}`, whose parameters "
-                                 f"{', '.join(missing)} it does not declare")
+            raise DbmetricsError(
+                f"{info.path}: includes query `{inner.name}`, whose parameters "
+                f"{', '.join(missing)} it does not declare"
+            )
     return render_info(con, info, params, {f"query:{q.name}": q for q in included}, materialize)
 
 
-def render_info(con, info: QueryInfo, params: dict, included: dict,
-                materialize: bool = False) -> tuple:
+def render_info(
+    con, info: QueryInfo, params: dict, included: dict, materialize: bool = False
+) -> tuple:
     """materialize: compute STATE now with the numpy engine (engine.py) and read it from a
     registered table; otherwise {{state}} is the equivalent SQL with one UDF call per row."""
     texts = with_defaults(info, params)
-    values = {p.name: convert(p, texts[p.name]) for p in info.params
-              if p.kind not in ("source", "column", "columns")}
-    sources = {p.name: open_source(con, p.name, texts[p.name]) for p in info.params
-               if p.kind == "source" and texts[p.name] is not None}
+    values = {
+        p.name: convert(p, texts[p.name])
+        for p in info.params
+        if p.kind not in ("source", "column", "columns")
+    }
+    sources = {
+        p.name: open_source(con, p.name, texts[p.name])
+        for p in info.params
+        if p.kind == "source" and texts[p.name] is not None
+    }
     filled = {}
     if all(p in texts for p in COLUMN_MAP) and texts.get("partials") is not None:
-        from dbmetrics.partials import store_fragments  # partials builds on the templates
+        from dbmetrics.partials import store_fragments  # partials builds on the saved queries
+
         store_sql, store_values = store_fragments(texts)
         filled.update(store_sql)
         values.update(store_values)
-        filled.update({p.name: checked_names(p, texts[p.name]) for p in info.params
-                       if p.name in COLUMN_MAP and p.kind in ("column", "columns")
-                       and p.name not in filled})
+        filled.update(
+            {
+                p.name: checked_names(p, texts[p.name])
+                for p in info.params
+                if p.name in COLUMN_MAP and p.kind in ("column", "columns") and p.name not in filled
+            }
+        )
     elif all(p in texts for p in COLUMN_MAP):
         if texts["logs"] is None:
-            raise DbmetricsError(f"query `{info.name}` needs parameter `logs` (the prediction "
-                                 "log) or `partials` (a store of summarised days)")
+            raise DbmetricsError(
+                f"query `{info.name}` needs parameter `logs` (the prediction "
+                "log) or `partials` (a store of summarised days)"
+            )
         queries = [info, *included.values()]
-        reserved = set(STATE_COLUMNS + CLASS_STATE_COLUMNS + INTERNAL) | {
-            out.lower() for q in queries for out, _ in q.outputs} | {
-            alias for q in queries for alias in ALIAS.findall(q.body)}
-        cmap = column_map(texts, sources, reserved)
-        filled.update(fragments(cmap))
+        reserved = (
+            set(STATE_COLUMNS + CLASS_STATE_COLUMNS + INTERNAL)
+            | {out.lower() for q in queries for out, _ in q.outputs}
+            | {alias for q in queries for alias in ALIAS.findall(q.body)}
+        )
+        roles = column_roles(texts, sources, reserved)
+        filled.update(fragments(roles))
         uses = {name for q in queries for name in PLACEHOLDER.findall(q.body)}
         bound = {k: v for s in sources.values() for k, v in s.bound.items()}
-        if materialize and "state" in uses and engine_pays(con, cmap, bound,
-                                                            "class_state" in uses):
-            filled.update(materialized_states(con, cmap, {**values, **bound},
-                                              classes="class_state" in uses))
+        if (
+            materialize
+            and "state" in uses
+            and engine_pays(con, roles, bound, "class_state" in uses)
+        ):
+            filled.update(
+                materialized_states(con, roles, {**values, **bound}, classes="class_state" in uses)
+            )
     for p in info.params:
         if p.kind == "source" and p.name in sources:
             filled[p.name] = sources[p.name].sql
@@ -76,7 +106,9 @@ def render_info(con, info: QueryInfo, params: dict, included: dict,
         elif p.kind in ("column", "columns") and (p.name not in filled or p.sources):
             filled[p.name] = checked_columns(p, texts[p.name], sources)
     for key, inner in included.items():
-        filled[key] = PLACEHOLDER.sub(lambda m: fill(m.group(1), filled, inner), inner.body)
+        filled[key] = PLACEHOLDER.sub(
+            lambda m, inner=inner: fill(m.group(1), filled, inner), inner.body
+        )
     sql = PLACEHOLDER.sub(lambda m: fill(m.group(1), filled, info), info.body)
     return sql, bound_values(sql, values)
 
@@ -95,17 +127,21 @@ def checked_columns(p, text, sources) -> str:
     for name in names:
         wanted = p.sources or ("logs",)
         if not all(s in sources for s in wanted):
-            raise DbmetricsError(f"{p.name}: names columns of {', '.join(wanted)}; "
-                                 "set that source parameter too")
+            raise DbmetricsError(
+                f"{p.name}: names columns of {', '.join(wanted)}; set that source parameter too"
+            )
         quoted.append(quote([sources[s].column(name, p.name) for s in wanted][0]))
     return ", ".join(quoted)
 
 
 def fill(name: str, filled: dict, info: QueryInfo) -> str:
     if name in filled and filled[name] is None:
-        raise DbmetricsError(f"query `{info.name}` reads individual predictions ({{{{{name}}}}}); "
-                             "a partials store keeps only sums: run it on logs")
+        raise DbmetricsError(
+            f"query `{info.name}` reads individual predictions ({{{{{name}}}}}); "
+            "a partials store keeps only sums: run it on logs"
+        )
     if name not in filled:
-        raise DbmetricsError(f"{info.path}: placeholder {{{{{name}}}}} has no value; "
-                             f"set parameter `{name}`")
+        raise DbmetricsError(
+            f"{info.path}: placeholder {{{{{name}}}}} has no value; set parameter `{name}`"
+        )
     return filled[name]

@@ -10,8 +10,7 @@ from .render import render_query
 from .schema import first_line, open_source
 
 
-def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict,
-              query_dirs=None) -> pa.Table:
+def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict, query_dirs=None) -> pa.Table:
     """Render `name` with `params` (text values, as from the CLI), execute, fetch as Arrow.
 
     STATE is computed first by the numpy engine and read from a registered table, which
@@ -28,15 +27,20 @@ def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict,
             con.unregister(view)
     repeated = sorted({c for c in table.column_names if table.column_names.count(c) > 1})
     if repeated:
-        raise DbmetricsError(f"query `{name}` returns column(s) {', '.join(repeated)} twice "
-                             "(an input column shares a computed column's name); rename it "
-                             "in a view")
+        raise DbmetricsError(
+            f"query `{name}` returns column(s) {', '.join(repeated)} twice "
+            "(an input column shares a computed column's name); rename it "
+            "in a view"
+        )
     return table
 
 
 def explain(con, params: dict, exc: duckdb.Error) -> str:
     """DuckDB's first line, and for a Parquet log that cannot be decoded, which file."""
-    from dbmetrics.check.files import is_parquet, unreadable  # the check builds on templates
+    from dbmetrics.check.files import (
+        is_parquet,
+        unreadable,
+    )  # the check builds on the saved queries
 
     text = "".join(c for c in first_line(exc) if c.isprintable())
     logs = params.get("logs")

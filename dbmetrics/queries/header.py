@@ -13,7 +13,7 @@ A saved query is one .sql file that opens with a header of `--` lines:
     --     (a line indented by three or more spaces continues the entry above)
 
 The body after the header is SQL with `$name` for bound values and `{{name}}` for rendered
-fragments: a declared source/column parameter (quoted), a column-map fragment (prelude.py),
+fragments: a declared source/column parameter (quoted), a column-role fragment (state_sql.py),
 or `{{query:NAME}}`, another saved query's body rendered with the same parameters. Every
 `$name` and parameter placeholder must be declared in the header.
 """
@@ -25,9 +25,26 @@ from pathlib import Path
 from dbmetrics.errors import DbmetricsError
 
 TYPES = ("source", "column", "columns", "choice", "date", "number", "integer", "text")
-FRAGMENTS = ("state", "class_state", "predictions", "segments", "segment_match")  # see prelude.fragments
-COLUMN_MAP = ("logs", "time_col", "scores_col", "scores_kind", "label_col", "version_col",
-              "segment_cols", "labels", "id_col", "classes", "bins")
+FRAGMENTS = (
+    "state",
+    "class_state",
+    "predictions",
+    "segments",
+    "segment_match",
+)  # see state_sql.fragments
+COLUMN_MAP = (
+    "logs",
+    "time_col",
+    "scores_col",
+    "scores_kind",
+    "label_col",
+    "version_col",
+    "segment_cols",
+    "labels",
+    "id_col",
+    "classes",
+    "bins",
+)
 
 PARAM = re.compile(r"param\s+([a-z_][a-z0-9_]*)\s*\(([^()]*(?:\([^()]*\))?[^()]*)\)\s*:\s*(.+)")
 KEYED = re.compile(r"(name|summary|example|note|output\s+[A-Za-z_][A-Za-z0-9_]*)\s*:\s*(.*)")
@@ -56,6 +73,7 @@ class Param:
     is checked against (default: logs); low/high: inclusive bounds of integer/number;
     default: text as written, None when unset.
     """
+
     name: str
     type: str
     kind: str
@@ -92,7 +110,7 @@ def parse_query(text: str, path: Path, origin: str) -> QueryInfo:
         if not line.startswith("--"):
             break
         header.append(line)
-    body = "\n".join(lines[len(header):]).strip()
+    body = "\n".join(lines[len(header) :]).strip()
     entries = header_entries(header, path)
     fields, params, outputs, notes = {}, [], [], []
     for key, value in entries:
@@ -108,17 +126,30 @@ def parse_query(text: str, path: Path, origin: str) -> QueryInfo:
             fields[key] = value
     for key in ("name", "summary", "example"):
         if not fields.get(key):
-            raise DbmetricsError(f"{path}: header lacks `-- {key}: ...`; every saved query "
-                                 "needs name, summary and example lines")
+            raise DbmetricsError(
+                f"{path}: header lacks `-- {key}: ...`; every saved query "
+                "needs name, summary and example lines"
+            )
     name = fields["name"]
     if not NAME.fullmatch(name) or name != path.stem:
-        raise DbmetricsError(f"{path}: header name `{name}` must be lower-case letters, digits "
-                             f"and _ and match the file name `{path.stem}`")
+        raise DbmetricsError(
+            f"{path}: header name `{name}` must be lower-case letters, digits "
+            f"and _ and match the file name `{path.stem}`"
+        )
     names = [p.name for p in params]
     if len(set(names)) != len(names):
         raise DbmetricsError(f"{path}: a parameter is declared twice: {', '.join(names)}")
-    info = QueryInfo(name, fields["summary"], path, tuple(params), fields["example"], origin,
-                     tuple(outputs), tuple(notes), body)
+    info = QueryInfo(
+        name,
+        fields["summary"],
+        path,
+        tuple(params),
+        fields["example"],
+        origin,
+        tuple(outputs),
+        tuple(notes),
+        body,
+    )
     check_body(info)
     return info
 
@@ -140,8 +171,10 @@ def header_entries(header: list, path: Path) -> list:
             continue
         match = KEYED.fullmatch(text)
         if not match:
-            raise DbmetricsError(f"{path}: header line `{line}` is not one of name:, summary:, "
-                                 "param NAME (TYPE...): , output NAME:, note:, example:")
+            raise DbmetricsError(
+                f"{path}: header line `{line}` is not one of name:, summary:, "
+                "param NAME (TYPE...): , output NAME:, note:, example:"
+            )
         entries.append((" ".join(match.group(1).split()), match.group(2).strip()))
     return entries
 
@@ -150,62 +183,87 @@ def parse_param(text: str, path: Path) -> Param:
     """`NAME (TYPE[, default VALUE | required]): meaning` -> Param."""
     match = PARAM.fullmatch(text.strip())
     if not match:
-        raise DbmetricsError(f"{path}: cannot read `-- {text}`; expected "
-                             "`-- param NAME (TYPE[, default VALUE | required]): meaning`")
+        raise DbmetricsError(
+            f"{path}: cannot read `-- {text}`; expected "
+            "`-- param NAME (TYPE[, default VALUE | required]): meaning`"
+        )
     name, spec, meaning = match.groups()
     type_text, rest = (part.strip() for part in SPEC.fullmatch(spec.strip()).groups(""))
     kind, arg = TYPE.fullmatch(type_text).groups() if TYPE.fullmatch(type_text) else (None, None)
-    parsers = {"choice": CHOICES, "column": SOURCES, "columns": SOURCES,
-               "integer": RANGE, "number": RANGE}
-    if kind not in TYPES or (arg is not None and not (kind in parsers
-                                                      and parsers[kind].fullmatch(arg))):
-        raise DbmetricsError(f"{path}: parameter `{name}` has unknown type `{type_text}`; types "
-                             f"are {', '.join(TYPES)}, with choice(a|b), column(source, ...), "
-                             "columns(source, ...), integer(lo..hi), number(lo..hi)")
+    parsers = {
+        "choice": CHOICES,
+        "column": SOURCES,
+        "columns": SOURCES,
+        "integer": RANGE,
+        "number": RANGE,
+    }
+    if kind not in TYPES or (
+        arg is not None and not (kind in parsers and parsers[kind].fullmatch(arg))
+    ):
+        raise DbmetricsError(
+            f"{path}: parameter `{name}` has unknown type `{type_text}`; types "
+            f"are {', '.join(TYPES)}, with choice(a|b), column(source, ...), "
+            "columns(source, ...), integer(lo..hi), number(lo..hi)"
+        )
     if kind == "choice" and arg is None:
-        raise DbmetricsError(f"{path}: parameter `{name}`: choice needs its options, "
-                             "e.g. choice(day|week|month)")
+        raise DbmetricsError(
+            f"{path}: parameter `{name}`: choice needs its options, e.g. choice(day|week|month)"
+        )
     default, required = None, False
     if rest == "required":
         required = True
     elif rest.startswith("default "):
-        default = rest[len("default "):].strip()
+        default = rest[len("default ") :].strip()
     elif rest:
-        raise DbmetricsError(f"{path}: parameter `{name}`: `{rest}` should be `default VALUE` "
-                             "or `required`")
+        raise DbmetricsError(
+            f"{path}: parameter `{name}`: `{rest}` should be `default VALUE` or `required`"
+        )
     choices = tuple(arg.split("|")) if kind == "choice" else ()
     if kind == "choice" and default is not None and default not in choices:
-        raise DbmetricsError(f"{path}: parameter `{name}` defaults to `{default}`, "
-                             f"not one of {'|'.join(choices)}")
-    sources = tuple(s.strip() for s in arg.split(",")) if arg and kind in ("column", "columns") \
-        else ()
-    low, high = (float(x) if x else None for x in arg.split("..")) \
-        if arg and kind in ("integer", "number") else (None, None)
-    return Param(name, type_text, kind, meaning.strip(), default, required, choices, sources,
-                 low, high)
+        raise DbmetricsError(
+            f"{path}: parameter `{name}` defaults to `{default}`, not one of {'|'.join(choices)}"
+        )
+    sources = (
+        tuple(s.strip() for s in arg.split(",")) if arg and kind in ("column", "columns") else ()
+    )
+    low, high = (
+        (float(x) if x else None for x in arg.split(".."))
+        if arg and kind in ("integer", "number")
+        else (None, None)
+    )
+    return Param(
+        name, type_text, kind, meaning.strip(), default, required, choices, sources, low, high
+    )
 
 
 def check_body(info: QueryInfo) -> None:
-    """Every `$name` and `{{name}}` in the body is declared; fragments need the column map."""
+    """Every `$name` and `{{name}}` in the body is declared; fragments need the column roles."""
     declared = {p.name: p for p in info.params}
     for name in BOUND.findall(info.body):
         if name not in declared:
-            raise DbmetricsError(f"{info.path}: the SQL uses ${name} but the header declares no "
-                                 f"parameter `{name}`; add `-- param {name} (TYPE...): meaning`")
+            raise DbmetricsError(
+                f"{info.path}: the SQL uses ${name} but the header declares no "
+                f"parameter `{name}`; add `-- param {name} (TYPE...): meaning`"
+            )
     for name in PLACEHOLDER.findall(info.body):
-        if name.startswith("query:") and NAME.fullmatch(name[len("query:"):]):
+        if name.startswith("query:") and NAME.fullmatch(name[len("query:") :]):
             continue  # another saved query, rendered with these parameters (checked then)
         if name in FRAGMENTS:
             missing = [p for p in COLUMN_MAP if p not in declared]
             if missing:
-                raise DbmetricsError(f"{info.path}: {{{{{name}}}}} needs the column-map parameters "
-                                     f"declared; missing: {', '.join(missing)}")
+                raise DbmetricsError(
+                    f"{info.path}: {{{{{name}}}}} needs the column-role parameters "
+                    f"declared; missing: {', '.join(missing)}"
+                )
         elif name not in declared or declared[name].kind not in ("source", "column", "columns"):
             raise DbmetricsError(
                 f"{info.path}: placeholder {{{{{name}}}}} is neither a declared source/column "
-                f"parameter nor one of the fragments {', '.join(FRAGMENTS)}")
+                f"parameter nor one of the fragments {', '.join(FRAGMENTS)}"
+            )
     for p in info.params:
         unknown = [s for s in p.sources if s not in declared or declared[s].kind != "source"]
         if unknown:
-            raise DbmetricsError(f"{info.path}: parameter `{p.name}` checks columns against "
-                                 f"`{', '.join(unknown)}`, which is not a declared source parameter")
+            raise DbmetricsError(
+                f"{info.path}: parameter `{p.name}` checks columns against "
+                f"`{', '.join(unknown)}`, which is not a declared source parameter"
+            )

@@ -1,6 +1,7 @@
 """Saved-query headers, discovery of user folders, and the rules a header must follow."""
 
 import datetime as dt
+from pathlib import Path
 
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -8,9 +9,9 @@ import pytest
 
 import dbmetrics
 from dbmetrics import DbmetricsError
-from dbmetrics.templates import get_query, list_queries, render_query, run_query
-from dbmetrics.templates.catalog import BUILT_IN
-from dbmetrics.templates.header import COLUMN_MAP
+from dbmetrics.queries import get_query, list_queries, render_query, run_query
+from dbmetrics.queries.catalog import BUILT_IN
+from dbmetrics.queries.header import COLUMN_MAP
 
 USER_QUERY = """\
 -- name: {name}
@@ -45,9 +46,17 @@ def write(folder, name, text=None):
 @pytest.fixture
 def logs(tmp_path):
     path = tmp_path / "logs.parquet"
-    pq.write_table(pa.table({"ts": pa.array([dt.datetime(2026, 1, 5)] * 3, pa.timestamp("us")),
-                             "model_version": ["v1", "v1", "v2"],
-                             "logits": [[0.0, 1.0]] * 3, "label": [1, 0, 1]}), path)
+    pq.write_table(
+        pa.table(
+            {
+                "ts": pa.array([dt.datetime(2026, 1, 5)] * 3, pa.timestamp("us")),
+                "model_version": ["v1", "v1", "v2"],
+                "logits": [[0.0, 1.0]] * 3,
+                "label": [1, 0, 1],
+            }
+        ),
+        path,
+    )
     return str(path)
 
 
@@ -56,16 +65,22 @@ def test_built_in_queries_and_their_header():
     assert set(queries) == {"rollup", "calibration", "drift", "segments", "recalibration"}
     grain = queries["rollup"].param("grain")
     assert (grain.type, grain.choices, grain.default, grain.required) == (
-        "choice(day|week|month)", ("day", "week", "month"), "week", False)
+        "choice(day|week|month)",
+        ("day", "week", "month"),
+        "week",
+        False,
+    )
     assert not queries["rollup"].param("logs").required  # logs or partials: checked when rendering
     assert queries["drift"].param("ref_start").default is None
     assert all(q.origin == "built-in" and q.path.parent == BUILT_IN for q in queries.values())
 
 
-def test_every_template_declares_the_same_column_map():
+def test_every_template_declares_the_same_column_roles():
     """One wording per shared parameter (segments narrows segment_cols to its join)."""
-    declared = {q.name: {p.name: p for p in q.params if p.name in COLUMN_MAP + ("grain",)}
-                for q in list_queries()}
+    declared = {
+        q.name: {p.name: p for p in q.params if p.name in COLUMN_MAP + ("grain",)}
+        for q in list_queries()
+    }
     rollup = declared["rollup"]
     for name, params in declared.items():
         assert set(params) == set(rollup)
@@ -91,8 +106,11 @@ def test_user_query_may_not_shadow_a_built_in(tmp_path):
 
 
 def test_unknown_query_lists_the_names():
-    with pytest.raises(DbmetricsError, match="no saved query `rolup`; queries are: "
-                                             "calibration, drift, recalibration, rollup, segments"):
+    with pytest.raises(
+        DbmetricsError,
+        match="no saved query `rolup`; queries are: "
+        "calibration, drift, recalibration, rollup, segments",
+    ):
         get_query("rolup")
 
 
@@ -101,22 +119,38 @@ def test_missing_folder_is_an_error(tmp_path):
         list_queries([tmp_path / "nowhere"])
 
 
-@pytest.mark.parametrize("change,message", [
-    (("HAVING sum(rows) >= $min_rows", "HAVING sum(rows) >= $limit"),
-     "uses $limit but the header declares no parameter `limit`"),
-    (("SELECT {{version_col}}", "SELECT {{region}}"),
-     "placeholder {{region}} is neither a declared source/column parameter"),
-    (("-- param bins (integer(1..1000), default 15): bins\n", ""),
-     "{{state}} needs the column-map parameters declared; missing: bins"),
-    (("-- example: dbmetrics run bad --set logs=logs/\n", ""), "header lacks `-- example: ...`"),
-    (("(integer, default 0)", "(whole, default 0)"), "unknown type `whole`"),
-    (("(integer, default 0)", "(integer, 0)"),
-     "should be `default VALUE` or `required`"),
-    (("choice(logits|probs|binary_logit|binary_prob), default logits",
-      "choice(logits|probs), default scores"), "defaults to `scores`, not one of logits|probs"),
-    (("-- name: bad", "-- name: other"), "must be lower-case letters, digits and _ and match"),
-    (("-- output rows: rows", "-- outputs rows: rows"), "is not one of name:, summary:"),
-])
+@pytest.mark.parametrize(
+    "change,message",
+    [
+        (
+            ("HAVING sum(rows) >= $min_rows", "HAVING sum(rows) >= $limit"),
+            "uses $limit but the header declares no parameter `limit`",
+        ),
+        (
+            ("SELECT {{version_col}}", "SELECT {{region}}"),
+            "placeholder {{region}} is neither a declared source/column parameter",
+        ),
+        (
+            ("-- param bins (integer(1..1000), default 15): bins\n", ""),
+            "{{state}} needs the column-role parameters declared; missing: bins",
+        ),
+        (
+            ("-- example: dbmetrics run bad --set logs=logs/\n", ""),
+            "header lacks `-- example: ...`",
+        ),
+        (("(integer, default 0)", "(whole, default 0)"), "unknown type `whole`"),
+        (("(integer, default 0)", "(integer, 0)"), "should be `default VALUE` or `required`"),
+        (
+            (
+                "choice(logits|probs|binary_logit|binary_prob), default logits",
+                "choice(logits|probs), default scores",
+            ),
+            "defaults to `scores`, not one of logits|probs",
+        ),
+        (("-- name: bad", "-- name: other"), "must be lower-case letters, digits and _ and match"),
+        (("-- output rows: rows", "-- outputs rows: rows"), "is not one of name:, summary:"),
+    ],
+)
 def test_malformed_user_queries_are_rejected(tmp_path, change, message):
     text = USER_QUERY.format(name="bad").replace(*change)
     with pytest.raises(DbmetricsError) as err:
@@ -127,7 +161,8 @@ def test_malformed_user_queries_are_rejected(tmp_path, change, message):
 def test_continuation_lines_extend_an_entry(tmp_path):
     text = USER_QUERY.format(name="long").replace(
         "-- param min_rows (integer, default 0): keep versions with at least this many rows\n",
-        "-- param min_rows (integer, default 0): keep versions\n--    with at least this many rows\n")
+        "-- param min_rows (integer, default 0): keep versions\n--    with at least this many rows\n",
+    )
     info = get_query("long", [write(tmp_path / "mine", "long", text)])
     assert info.param("min_rows").help == "keep versions with at least this many rows"
 
@@ -136,7 +171,8 @@ def test_a_query_can_include_another(tmp_path, logs):
     text = USER_QUERY.format(name="wrapped").replace(
         "SELECT {{version_col}}, sum(rows)::BIGINT AS rows\nFROM ({{state}})\nGROUP BY ALL\n"
         "HAVING sum(rows) >= $min_rows\n",
-        "SELECT * FROM ({{query:per_version}}) WHERE rows >= $min_rows\n")
+        "SELECT * FROM ({{query:per_version}}) WHERE rows >= $min_rows\n",
+    )
     dirs = [write(write(tmp_path / "mine", "per_version"), "wrapped", text)]
     con = dbmetrics.connect()
     sql, bound = render_query(con, "wrapped", {"logs": logs, "min_rows": "1"}, dirs)
@@ -147,10 +183,11 @@ def test_a_query_can_include_another(tmp_path, logs):
 @pytest.mark.parametrize("query", ["rollup", "calibration", "drift", "segments", "recalibration"])
 def test_header_example_runs_on_the_demo_logs(query, monkeypatch):
     """The `-- example:` line is a working command (run from the repository root)."""
-    root = BUILT_IN.parent.parent
+    root = Path(__file__).resolve().parents[1]
     monkeypatch.chdir(root)
     words = get_query(query).example.split()
     assert words[:3] == ["dbmetrics", "run", query] and words[3::2] == ["--set"] * (
-        len(words[3:]) // 2)
+        len(words[3:]) // 2
+    )
     params = dict(w.split("=", 1) for w in words[4::2])
     assert run_query(dbmetrics.connect(), query, params).num_rows > 0

@@ -26,18 +26,24 @@ def with_defaults(info: QueryInfo, params: dict) -> dict:
     declared = {p.name: p for p in info.params}
     unknown = sorted(set(params) - set(declared))
     if unknown:
-        raise DbmetricsError(f"query `{info.name}` has no parameter {', '.join(unknown)}; "
-                             f"its parameters are: {', '.join(declared)}")
+        raise DbmetricsError(
+            f"query `{info.name}` has no parameter {', '.join(unknown)}; "
+            f"its parameters are: {', '.join(declared)}"
+        )
     texts = {}
     for p in info.params:
         given = params.get(p.name)
         text = p.default if given is None else (str(given).strip() or None)
         if text is None and p.default is not None and p.name not in EMPTY_MEANS_NONE:
-            raise DbmetricsError(f"parameter `{p.name}` cannot be empty; leave it out for its "
-                                 f"default ({p.default}) or give a value")
+            raise DbmetricsError(
+                f"parameter `{p.name}` cannot be empty; leave it out for its "
+                f"default ({p.default}) or give a value"
+            )
         if text is None and p.required:
-            raise DbmetricsError(f"query `{info.name}` needs parameter `{p.name}` ({p.help}); "
-                                 f"pass --set {p.name}=...")
+            raise DbmetricsError(
+                f"query `{info.name}` needs parameter `{p.name}` ({p.help}); "
+                f"pass --set {p.name}=..."
+            )
         texts[p.name] = text
     return texts
 
@@ -52,18 +58,21 @@ def convert(p: Param, text: str | None):
         return in_range(p, int(text))
     if p.kind == "number":
         if not NUMBER.fullmatch(text) or not math.isfinite(float(text)):
-            raise DbmetricsError(f"parameter `{p.name}` expects a number such as 0.25; "
-                                 f"got `{text}`")
+            raise DbmetricsError(
+                f"parameter `{p.name}` expects a number such as 0.25; got `{text}`"
+            )
         return in_range(p, float(text))
     if p.kind == "date":
         try:
             return dt.date.fromisoformat(text)
         except ValueError:
-            raise DbmetricsError(f"parameter `{p.name}` expects a date YYYY-MM-DD; "
-                                 f"got `{text}`") from None
+            raise DbmetricsError(
+                f"parameter `{p.name}` expects a date YYYY-MM-DD; got `{text}`"
+            ) from None
     if p.kind == "choice" and text not in p.choices:
-        raise DbmetricsError(f"parameter `{p.name}` must be one of {', '.join(p.choices)}; "
-                             f"got `{text}`")
+        raise DbmetricsError(
+            f"parameter `{p.name}` must be one of {', '.join(p.choices)}; got `{text}`"
+        )
     return text
 
 

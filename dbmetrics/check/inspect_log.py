@@ -5,20 +5,28 @@ from collections import Counter, defaultdict
 import duckdb
 
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.templates.header import bound_values
-from dbmetrics.templates.schema import first_line, open_source
+from dbmetrics.queries.header import bound_values
+from dbmetrics.queries.schema import first_line, open_source
 
 from . import files, sql
 from .params import Resolved, resolve
 from .report import FileStats, Issue, Report, VersionClasses
 
 FILE_COLUMN = "dbmetrics_file"
-SECTIONS = ("scores", "classes", "labels", "timestamps", "versions", "ids", "labels_table",
-            "targets")
+SECTIONS = (
+    "scores",
+    "classes",
+    "labels",
+    "timestamps",
+    "versions",
+    "ids",
+    "labels_table",
+    "targets",
+)
 
 
 def check_log(con: duckdb.DuckDBPyConnection, params: dict) -> "Report":
-    """The health report of the log `params` describe (the templates' column map).
+    """The health report of the log `params` describe (the saved queries' column roles).
 
     Reads the log with GROUP BY queries (and one window per Parquet file for the order;
     nothing is loaded into Python), so it spills rather than run out of memory. Raises
@@ -26,7 +34,7 @@ def check_log(con: duckdb.DuckDBPyConnection, params: dict) -> "Report":
     failed query.
     """
     r = resolved(con, params)
-    values = {**r.values, **r.logs.bound, **(r.cmap.labels.bound if r.cmap.labels else {})}
+    values = {**r.values, **r.logs.bound, **(r.roles.labels.bound if r.roles.labels else {})}
 
     def fetch(query):
         return con.execute(query, bound_values(query, values)).fetchall()
@@ -60,29 +68,39 @@ def drift_hint(con, logs: str | None) -> str:
 
 def located(con, r: Resolved, exc: duckdb.Error) -> DbmetricsError:
     """The error, naming the file that cannot be read when there is one."""
-    for name, source in (("logs", r.logs), ("labels", r.cmap.labels)):
+    for name, source in (("logs", r.logs), ("labels", r.roles.labels)):
         if source is not None and files.is_parquet(source):
             bad = files.unreadable(con, source)
             if bad:
-                return DbmetricsError(f"{name}: file `{bad[0]}` cannot be read ({bad[1]}); "
-                                      "repair it or move it out of the log")
+                return DbmetricsError(
+                    f"{name}: file `{bad[0]}` cannot be read ({bad[1]}); "
+                    "repair it or move it out of the log"
+                )
     return DbmetricsError(f"check failed: {first_line(exc)}")
 
 
 def assemble(con, r: Resolved, fetch) -> Report:
-    cmap = r.cmap
-    roles = {col: role for role, col in (
-        ("time_col", cmap.time), ("scores_col", cmap.scores), ("version_col", cmap.version),
-        ("label_col", cmap.label if cmap.labels is None else None), ("id_col", r.id_col),
-        ("target_col", r.target_col)) if col}
-    columns = tuple((c, t, roles.get(c)) for c, t in r.logs.columns.items())
+    roles = r.roles
+    role_of = {
+        col: role
+        for role, col in (
+            ("time_col", roles.time),
+            ("scores_col", roles.scores),
+            ("version_col", roles.version),
+            ("label_col", roles.label if roles.labels is None else None),
+            ("id_col", r.id_col),
+            ("target_col", r.target_col),
+        )
+        if col
+    }
+    columns = tuple((c, t, role_of.get(c)) for c, t in r.logs.columns.items())
     grouped = fetch(sql.rows(r))
     issues = row_issues(r, grouped)
     classes = version_classes(grouped)
     issues.append(Issue("classes", "k_differs", sum(v.other_k_rows for v in classes), True))
     notes, file_stats, drift = [], (), ()
     if files.is_parquet(r.logs):
-        drift = tuple(files.drift(con, r.logs, roles))
+        drift = tuple(files.drift(con, r.logs, role_of))
         if "file_row_number" in {c.lower() for c in r.logs.columns}:
             notes.append("out_of_order not checked: the log has its own file_row_number column")
         else:
@@ -90,37 +108,59 @@ def assemble(con, r: Resolved, fetch) -> Report:
             while file_col in r.logs.columns:
                 file_col += "_"
             file_stats = tuple(FileStats(*row) for row in fetch(sql.order(r, file_col)))
-            issues.append(Issue("timestamps", "out_of_order",
-                                sum(f.out_of_order for f in file_stats), True))
+            issues.append(
+                Issue("timestamps", "out_of_order", sum(f.out_of_order for f in file_stats), True)
+            )
     else:
-        notes.append("out_of_order and drift between files not checked: the log is not "
-                     "Parquet files")
+        notes.append(
+            "out_of_order and drift between files not checked: the log is not Parquet files"
+        )
     if r.id_col:
         dup_ids, dup_rows, null_ids = fetch(sql.duplicates(r))[0]
-        issues += [Issue("ids", "duplicate_ids", dup_rows, True, f"{dup_ids} ids"),
-                   Issue("ids", "null_ids", null_ids, True)]
-    if cmap.labels is not None:
-        names = ("label_rows", "null_label_ids", "null_labels",
-                 "unknown_class_labels" if cmap.classes else "negative_labels",
-                 "conflicting_label_ids", "orphan_labels")
+        issues += [
+            Issue("ids", "duplicate_ids", dup_rows, True, f"{dup_ids} ids"),
+            Issue("ids", "null_ids", null_ids, True),
+        ]
+    if roles.labels is not None:
+        names = (
+            "label_rows",
+            "null_label_ids",
+            "null_labels",
+            "unknown_class_labels" if roles.classes else "negative_labels",
+            "conflicting_label_ids",
+            "orphan_labels",
+        )
         counts = dict(zip(names, fetch(sql.labels_table(r))[0]))
-        notes.append(f"labels table: {counts.pop('label_rows')} rows; columns: "
-                     + ", ".join(f"{c} {t}" for c, t in cmap.labels.columns.items()))
+        notes.append(
+            f"labels table: {counts.pop('label_rows')} rows; columns: "
+            + ", ".join(f"{c} {t}" for c, t in roles.labels.columns.items())
+        )
         issues += [Issue("labels_table", n, c, True) for n, c in counts.items()]
     if r.target_col:
         found = dict(fetch(sql.targets(r)))
-        issues += [Issue("targets", reason, found.get(reason, 0), reason != "no_target")
-                   for reason, _ in (("no_target", ""),) + sql.TARGET_REASONS]
-    if cmap.label is None:
+        issues += [
+            Issue("targets", reason, found.get(reason, 0), reason != "no_target")
+            for reason, _ in (("no_target", ""),) + sql.TARGET_REASONS
+        ]
+    if roles.label is None:
         notes.append("labels not checked: label_col is empty")
     periods = defaultdict(int)
     for period, version, _, _, _, n in grouped:
         periods[(period, version)] += n
     issues = tuple(sorted(issues, key=lambda i: SECTIONS.index(i.check)))
     clean = not any(i.problem and i.count for i in issues) and not any(d.problem for d in drift)
-    return Report(r.texts["logs"], r.texts["grain"], columns, drift,
-                  tuple((p, v, n) for (p, v), n in sorted(periods.items(), key=null_last)),
-                  tuple(classes), issues, file_stats, tuple(notes), clean)
+    return Report(
+        r.texts["logs"],
+        r.texts["grain"],
+        columns,
+        drift,
+        tuple((p, v, n) for (p, v), n in sorted(periods.items(), key=null_last)),
+        tuple(classes),
+        issues,
+        file_stats,
+        tuple(notes),
+        clean,
+    )
 
 
 def row_issues(r: Resolved, grouped: list) -> list:
@@ -133,14 +173,20 @@ def row_issues(r: Resolved, grouped: list) -> list:
         label[label_issue] += n
         null_time += n if period is None else 0
         null_version += n if version is None else 0
-    probs = r.cmap.kind in ("probs", "binary_prob")
+    probs = r.roles.kind in ("probs", "binary_prob")
     score_reasons = sql.SCORE_REASONS + (sql.PROB_REASONS if probs else sql.LOGIT_REASONS)
     strict = r.texts["require_labels"] == "yes"
-    return ([Issue("scores", reason, score[reason], True) for reason, _ in score_reasons]
-            + [Issue("labels", reason, label[reason], reason != "unlabelled" or strict)
-               for reason, _ in sql.label_reasons(r)]
-            + [Issue("timestamps", "null_timestamps", null_time, True),
-               Issue("versions", "null_versions", null_version, True)])
+    return (
+        [Issue("scores", reason, score[reason], True) for reason, _ in score_reasons]
+        + [
+            Issue("labels", reason, label[reason], reason != "unlabelled" or strict)
+            for reason, _ in sql.label_reasons(r)
+        ]
+        + [
+            Issue("timestamps", "null_timestamps", null_time, True),
+            Issue("versions", "null_versions", null_version, True),
+        ]
+    )
 
 
 def version_classes(grouped: list) -> list:
@@ -154,8 +200,9 @@ def version_classes(grouped: list) -> list:
     for version, counts in sorted(ks.items(), key=lambda item: null_last((item[0],))):
         usual = min(counts, key=lambda k: (-counts[k], k))
         total = sum(counts.values())
-        out.append(VersionClasses(version, total, usual, total - counts[usual],
-                                  tuple(sorted(counts))))
+        out.append(
+            VersionClasses(version, total, usual, total - counts[usual], tuple(sorted(counts)))
+        )
     return out
 
 

@@ -8,7 +8,7 @@ import pytest
 
 import dbmetrics
 from dbmetrics import DbmetricsError
-from dbmetrics.templates import get_query, list_queries, render_query, run_query
+from dbmetrics.queries import get_query, list_queries, render_query, run_query
 
 HOSTILE = [
     "x'; DROP TABLE canary; --",
@@ -28,11 +28,18 @@ def con():
 @pytest.fixture(scope="module")
 def logs(tmp_path_factory):
     path = tmp_path_factory.mktemp("safety") / "logs.parquet"
-    pq.write_table(pa.table({
-        "ts": pa.array([dt.datetime(2026, 1, 5, 9)] * 3, pa.timestamp("us")),
-        "model_version": ["v1"] * 3, "region": ["a", "b", "a"],
-        "logits": pa.array([[0.1, 2.0], [1.0, -1.0], [0.0, 0.0]], pa.list_(pa.float32())),
-        "label": [1, 0, None]}), path)
+    pq.write_table(
+        pa.table(
+            {
+                "ts": pa.array([dt.datetime(2026, 1, 5, 9)] * 3, pa.timestamp("us")),
+                "model_version": ["v1"] * 3,
+                "region": ["a", "b", "a"],
+                "logits": pa.array([[0.1, 2.0], [1.0, -1.0], [0.0, 0.0]], pa.list_(pa.float32())),
+                "label": [1, 0, None],
+            }
+        ),
+        path,
+    )
     (path.parent / "biz.csv").write_text("region,tier\na,gold\nb,silver\n")
     return str(path)
 
@@ -67,30 +74,48 @@ def test_hostile_text_is_refused_or_bound(con, logs, query, param, text):
 def test_wrong_column_lists_the_columns(con, logs):
     with pytest.raises(DbmetricsError) as err:
         run_query(con, "rollup", {"logs": logs, "label_col": "labels"})
-    assert str(err.value) == ("label_col: column `labels` not found in logs; columns are: "
-                              "ts, model_version, region, logits, label")
+    assert str(err.value) == (
+        "label_col: column `labels` not found in logs; columns are: "
+        "ts, model_version, region, logits, label"
+    )
 
 
 def test_wrong_segment_column_in_business_table(con, logs, tmp_path):
     (tmp_path / "biz.csv").write_text("area,tier\na,gold\n")
-    with pytest.raises(DbmetricsError, match="column `region` not found in business; columns "
-                                             "are: area, tier"):
-        run_query(con, "segments", {"logs": logs, "segment_cols": "region",
-                                    "business": str(tmp_path / "biz.csv")})
+    with pytest.raises(
+        DbmetricsError, match="column `region` not found in business; columns are: area, tier"
+    ):
+        run_query(
+            con,
+            "segments",
+            {"logs": logs, "segment_cols": "region", "business": str(tmp_path / "biz.csv")},
+        )
 
 
-@pytest.mark.parametrize("params,message", [
-    ({"grain": "fortnight"}, "parameter `grain` must be one of day, week, month; got `fortnight`"),
-    ({"bins": "0"}, "parameter `bins` must lie in 1..1000; got 0"),
-    ({"bins": "15.5"}, "parameter `bins` expects a whole number; got `15.5`"),
-    ({"nope": "1"}, "query `rollup` has no parameter nope"),
-    ({"logs": ""}, "query `rollup` needs parameter `logs`"),
-    ({"logs": "/no/such/*.parquet"}, "logs: `/no/such/*.parquet` is neither a table or view"),
-    ({"time_col": "logits"}, "time_col: column `logits` is FLOAT[]; expected a DATE or TIMESTAMP"),
-    ({"scores_kind": "binary_prob"}, "scores_col: column `logits` is FLOAT[]; expected a single"),
-    ({"labels": "logs_table"}, "id_col: labels come from a separate table"),
-    ({"segment_cols": "region, rows"}, "column `rows` not found in logs"),
-])
+@pytest.mark.parametrize(
+    "params,message",
+    [
+        (
+            {"grain": "fortnight"},
+            "parameter `grain` must be one of day, week, month; got `fortnight`",
+        ),
+        ({"bins": "0"}, "parameter `bins` must lie in 1..1000; got 0"),
+        ({"bins": "15.5"}, "parameter `bins` expects a whole number; got `15.5`"),
+        ({"nope": "1"}, "query `rollup` has no parameter nope"),
+        ({"logs": ""}, "query `rollup` needs parameter `logs`"),
+        ({"logs": "/no/such/*.parquet"}, "logs: `/no/such/*.parquet` is neither a table or view"),
+        (
+            {"time_col": "logits"},
+            "time_col: column `logits` is FLOAT[]; expected a DATE or TIMESTAMP",
+        ),
+        (
+            {"scores_kind": "binary_prob"},
+            "scores_col: column `logits` is FLOAT[]; expected a single",
+        ),
+        ({"labels": "logs_table"}, "id_col: labels come from a separate table"),
+        ({"segment_cols": "region, rows"}, "column `rows` not found in logs"),
+    ],
+)
 def test_bad_parameters_get_one_line_errors(con, logs, params, message):
     con.sql(f"CREATE OR REPLACE VIEW logs_table AS SELECT * FROM read_parquet('{logs}')")
     with pytest.raises(DbmetricsError) as err:

@@ -12,7 +12,7 @@
 -- param id_col (column): prediction id present in both logs and labels (needed with labels)
 -- param classes (text): class names in class-index order, comma-separated, for labels stored as text; an unknown name is a bad label
 -- param bins (integer(1..1000), default 15): equal-width confidence bins, bin m holds m/B < c <= (m+1)/B (0 in bin 0)
--- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column map must cover version_col and segment_cols
+-- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column roles must cover version_col and segment_cols
 -- param ref_start (date): first day of the reference window (default: the first day in the data)
 -- param ref_end (date): last day of the reference window (default: the end of the 4th period from ref_start's period)
 -- param z (number(0..), default 4): flag a cross-entropy change when |cross_entropy_z| > z; also sets the chance level each divergence must pass (see notes)

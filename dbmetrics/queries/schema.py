@@ -22,6 +22,7 @@ def quote(name: str) -> str:
 @dataclass(frozen=True)
 class Source:
     """A FROM-able SQL fragment, the values it binds, and its columns (name -> type)."""
+
     param: str
     sql: str
     bound: dict
@@ -32,8 +33,10 @@ class Source:
         for col in self.columns:
             if col.lower() == name.lower():
                 return col
-        raise DbmetricsError(f"{role}: column `{name}` not found in {self.param}; columns are: "
-                             f"{', '.join(self.columns)}")
+        raise DbmetricsError(
+            f"{role}: column `{name}` not found in {self.param}; columns are: "
+            f"{', '.join(self.columns)}"
+        )
 
     def type_of(self, name: str) -> str:
         return self.columns[name]
@@ -67,7 +70,8 @@ def find_table(con, text: str) -> str | None:
     """The quoted name of the table or view `text` (name or schema.name), if there is one."""
     rows = con.execute(
         "SELECT schema_name, table_name FROM duckdb_tables() "
-        "UNION ALL SELECT schema_name, view_name FROM duckdb_views() WHERE NOT internal").fetchall()
+        "UNION ALL SELECT schema_name, view_name FROM duckdb_views() WHERE NOT internal"
+    ).fetchall()
     wanted = text.lower()
     for schema, name in rows:
         if wanted in (name.lower(), f"{schema}.{name}".lower()):
@@ -79,8 +83,10 @@ def described(con, param: str, sql: str, bound: dict, text: str) -> Source:
     try:
         rows = con.execute(f"DESCRIBE SELECT * FROM {sql}", bound).fetchall()
     except duckdb.IOException as exc:
-        raise DbmetricsError(f"{param}: `{text}` is neither a table or view nor a readable file, "
-                             f"glob or folder of Parquet/CSV ({first_line(exc)})") from None
+        raise DbmetricsError(
+            f"{param}: `{text}` is neither a table or view nor a readable file, "
+            f"glob or folder of Parquet/CSV ({first_line(exc)})"
+        ) from None
     except duckdb.Error as exc:
         raise DbmetricsError(f"{param}: cannot read `{text}`: {first_line(exc)}") from None
     return Source(param, sql, bound, {row[0]: row[1] for row in rows})

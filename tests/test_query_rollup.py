@@ -16,7 +16,7 @@ from scipy.special import logsumexp
 from sklearn.calibration import calibration_curve
 
 import dbmetrics
-from dbmetrics.templates import run_query
+from dbmetrics.queries import run_query
 
 START = dt.date(2026, 1, 5)  # a Monday
 
@@ -27,8 +27,10 @@ def random_logs(rng, n=1500, k=4, days=42, versions=("v1", "v2"), segments=("a",
     p = np.exp(logits - logsumexp(logits, axis=1, keepdims=True))
     labels = np.array([rng.choice(k, p=row) for row in p])
     rows = {
-        "ts": [dt.datetime.combine(START + dt.timedelta(days=int(d)), dt.time(int(h)))
-               for d, h in zip(rng.integers(0, days, n), rng.integers(0, 24, n))],
+        "ts": [
+            dt.datetime.combine(START + dt.timedelta(days=int(d)), dt.time(int(h)))
+            for d, h in zip(rng.integers(0, days, n), rng.integers(0, 24, n))
+        ],
         "model_version": list(rng.choice(versions, n)),
         "region": list(rng.choice(segments, n)),
         "logits": [list(r) for r in logits],
@@ -36,29 +38,35 @@ def random_logs(rng, n=1500, k=4, days=42, versions=("v1", "v2"), segments=("a",
     }
     awkward = rng.permutation(n)[:60]
     for i in awkward[:8]:
-        rows["logits"][i] = None                       # missing scores
+        rows["logits"][i] = None  # missing scores
     for i in awkward[8:12]:
-        rows["logits"][i] = []                         # empty list: missing
+        rows["logits"][i] = []  # empty list: missing
     for i in awkward[12:18]:
-        rows["logits"][i][1] = float("nan")            # invalid
+        rows["logits"][i][1] = float("nan")  # invalid
     for i in awkward[18:22]:
-        rows["logits"][i][0] = float("inf")            # invalid (+inf logit)
-    for i in awkward[22:30]:                           # masked true class: infinite loss
+        rows["logits"][i][0] = float("inf")  # invalid (+inf logit)
+    for i in awkward[22:30]:  # masked true class: infinite loss
         rows["logits"][i][rows["label"][i]] = float("-inf")
     for i in awkward[30:45]:
-        rows["label"][i] = None                        # not yet labelled
+        rows["label"][i] = None  # not yet labelled
     for i in awkward[45:52]:
-        rows["label"][i] = k + 3                       # out of range
+        rows["label"][i] = k + 3  # out of range
     for i in awkward[52:55]:
-        rows["label"][i] = -1                          # out of range
+        rows["label"][i] = -1  # out of range
     return rows
 
 
-def write_parquet(rows, path, logits_type=pa.float64()):
-    types = {"ts": pa.timestamp("us"), "model_version": pa.string(), "region": pa.string(),
-             "logits": pa.list_(logits_type), "label": pa.int64()}
-    table = pa.table({name: pa.array(values, type=types.get(name))
-                      for name, values in rows.items()})
+def write_parquet(rows, path, logits_type=None):
+    types = {
+        "ts": pa.timestamp("us"),
+        "model_version": pa.string(),
+        "region": pa.string(),
+        "logits": pa.list_(logits_type or pa.float64()),
+        "label": pa.int64(),
+    }
+    table = pa.table(
+        {name: pa.array(values, type=types.get(name)) for name, values in rows.items()}
+    )
     pq.write_table(table, path)
     return path
 
@@ -82,9 +90,12 @@ def row_stats(scores, label, bins):
     logp = z - logsumexp(z)
     p = np.exp(logp)
     conf = p.max()
-    stats = {"conf": conf, "pred": int(np.argmax(z)),
-             "entropy": -np.sum(np.where(p > 0, p * np.where(p > 0, logp, 0.0), 0.0)),
-             "bin": int(np.searchsorted(np.linspace(0, 1, bins + 1)[1:-1], conf, side="left"))}
+    stats = {
+        "conf": conf,
+        "pred": int(np.argmax(z)),
+        "entropy": -np.sum(np.where(p > 0, p * np.where(p > 0, logp, 0.0), 0.0)),
+        "bin": int(np.searchsorted(np.linspace(0, 1, bins + 1)[1:-1], conf, side="left")),
+    }
     if label is None:
         return "unlabelled", stats
     if not 0 <= label < len(z):
@@ -92,8 +103,9 @@ def row_stats(scores, label, bins):
     if p[label] == 0:
         return "inf", stats
     onehot = np.eye(len(z))[label]
-    stats.update(loss=-logp[label], correct=float(stats["pred"] == label),
-                 brier=np.sum((p - onehot) ** 2))
+    stats.update(
+        loss=-logp[label], correct=float(stats["pred"] == label), brier=np.sum((p - onehot) ** 2)
+    )
     return "ok", stats
 
 
@@ -113,7 +125,10 @@ def expected_rollup(rows, keys, grain="week", bins=15):
     for key, items in expected_groups(rows, keys, grain, bins).items():
         ok = [s for issue, s, _ in items if issue == "ok"]
         scored = [s for issue, s, _ in items if issue not in ("missing", "invalid")]
-        count = lambda wanted: sum(1 for issue, _, _ in items if issue == wanted)
+
+        def count(wanted, items=items):
+            return sum(1 for issue, _, _ in items if issue == wanted)
+
         loss = np.array([s["loss"] for s in ok])
         n = len(ok)
         out[key] = {
@@ -141,8 +156,11 @@ def ece_mce(ok, bins):
     conf = np.array([s["conf"] for s in ok])
     correct = np.array([s["correct"] for s in ok])
     b = np.array([s["bin"] for s in ok])
-    gaps = [(np.sum(b == m), abs(correct[b == m].mean() - conf[b == m].mean()))
-            for m in range(bins) if np.any(b == m)]
+    gaps = [
+        (np.sum(b == m), abs(correct[b == m].mean() - conf[b == m].mean()))
+        for m in range(bins)
+        if np.any(b == m)
+    ]
     return sum(c * g for c, g in gaps) / len(ok), max(g for _, g in gaps)
 
 
@@ -159,10 +177,27 @@ def by_key(table, keys):
     return {(r["period"], *(r[c] for c in keys)): r for r in table.to_pylist()}
 
 
-ROLLUP_COLUMNS = ["period", "model_version", "region", "rows", "labelled_rows", "label_coverage",
-                  "evaluated_rows", "cross_entropy", "cross_entropy_se", "perplexity", "accuracy",
-                  "brier", "ece", "mean_confidence", "mean_entropy", "missing_scores",
-                  "invalid_scores", "bad_labels", "infinite_loss_rows"]
+ROLLUP_COLUMNS = [
+    "period",
+    "model_version",
+    "region",
+    "rows",
+    "labelled_rows",
+    "label_coverage",
+    "evaluated_rows",
+    "cross_entropy",
+    "cross_entropy_se",
+    "perplexity",
+    "accuracy",
+    "brier",
+    "ece",
+    "mean_confidence",
+    "mean_entropy",
+    "missing_scores",
+    "invalid_scores",
+    "bad_labels",
+    "infinite_loss_rows",
+]
 
 
 @pytest.fixture(scope="module")
@@ -190,17 +225,27 @@ def test_rollup_matches_numpy(con, logs, grain):
     rows, path = logs
     table = run_query(con, "rollup", {"logs": path, "segment_cols": "region", "grain": grain})
     assert table.column_names == ROLLUP_COLUMNS
-    check_rollup(table, expected_rollup(rows, ["model_version", "region"], grain), 
-                 ["model_version", "region"])
+    check_rollup(
+        table,
+        expected_rollup(rows, ["model_version", "region"], grain),
+        ["model_version", "region"],
+    )
 
 
 def test_rollup_counts_every_awkward_row_once(con, logs):
     rows, path = logs
     total = run_query(con, "rollup", {"logs": path, "grain": "month"}).to_pylist()
-    sums = {c: sum(r[c] for r in total) for c in
-            ("rows", "missing_scores", "invalid_scores", "bad_labels", "infinite_loss_rows")}
-    assert sums == {"rows": 1500, "missing_scores": 12, "invalid_scores": 10, "bad_labels": 10,
-                    "infinite_loss_rows": 8}
+    sums = {
+        c: sum(r[c] for r in total)
+        for c in ("rows", "missing_scores", "invalid_scores", "bad_labels", "infinite_loss_rows")
+    }
+    assert sums == {
+        "rows": 1500,
+        "missing_scores": 12,
+        "invalid_scores": 10,
+        "bad_labels": 10,
+        "infinite_loss_rows": 8,
+    }
 
 
 @pytest.mark.parametrize("bins", [15, 10])
@@ -234,11 +279,17 @@ def test_calibration_matches_numpy_and_sklearn(con, logs, bins):
 
 def test_calibration_edges_are_right_closed(con, tmp_path):
     """Reference-checks I3: B = 10, confidences 0.5 (wrong) and 0.55 (right) -> ECE 0.475."""
-    rows = {"ts": [dt.datetime(2026, 1, 5)] * 2, "model_version": ["v"] * 2,
-            "region": ["a"] * 2, "logits": [[0.5, 0.5], [0.55, 0.45]], "label": [1, 0]}
+    rows = {
+        "ts": [dt.datetime(2026, 1, 5)] * 2,
+        "model_version": ["v"] * 2,
+        "region": ["a"] * 2,
+        "logits": [[0.5, 0.5], [0.55, 0.45]],
+        "label": [1, 0],
+    }
     path = write_parquet(rows, tmp_path / "edge.parquet")
-    table = run_query(con, "calibration", {"logs": str(path), "scores_kind": "probs",
-                                           "bins": "10"}).to_pylist()
+    table = run_query(
+        con, "calibration", {"logs": str(path), "scores_kind": "probs", "bins": "10"}
+    ).to_pylist()
     assert [r["bin"] for r in table] == [4, 5]
     assert_close(table[0]["ece"], 0.475, "ece")
     assert_close(table[0]["mce"], 0.5, "mce")
@@ -248,32 +299,65 @@ def test_late_labels_equal_inline_labels(con, logs, tmp_path):
     rows, path = logs
     n = len(rows["ts"])
     ids = np.random.default_rng(1).permutation(n)
-    logs_only = pa.table({"pred_id": ids, **{c: pq.read_table(path)[c] for c in
-                                             ("ts", "model_version", "region", "logits")}})
+    logs_only = pa.table(
+        {
+            "pred_id": ids,
+            **{c: pq.read_table(path)[c] for c in ("ts", "model_version", "region", "logits")},
+        }
+    )
     pq.write_table(logs_only, tmp_path / "preds.parquet")
     known = [i for i in range(n) if rows["label"][i] is not None]
-    order = np.random.default_rng(2).permutation(known)   # labels arrive in any order
-    pq.write_table(pa.table({"pred_id": ids[order],
-                             "label": [rows["label"][i] for i in order]}),
-                   tmp_path / "labels.parquet")
+    order = np.random.default_rng(2).permutation(known)  # labels arrive in any order
+    pq.write_table(
+        pa.table({"pred_id": ids[order], "label": [rows["label"][i] for i in order]}),
+        tmp_path / "labels.parquet",
+    )
     inline = run_query(con, "rollup", {"logs": path, "segment_cols": "region"})
-    late = run_query(con, "rollup", {"logs": str(tmp_path / "preds.parquet"),
-                                     "labels": str(tmp_path / "labels.parquet"),
-                                     "id_col": "pred_id", "segment_cols": "region"})
-    check_rollup(late, {k: {c: v for c, v in r.items() if c not in ROLLUP_COLUMNS[:3]}
-                        for k, r in by_key(inline, ["model_version", "region"]).items()},
-                 ["model_version", "region"])
+    late = run_query(
+        con,
+        "rollup",
+        {
+            "logs": str(tmp_path / "preds.parquet"),
+            "labels": str(tmp_path / "labels.parquet"),
+            "id_col": "pred_id",
+            "segment_cols": "region",
+        },
+    )
+    check_rollup(
+        late,
+        {
+            k: {c: v for c, v in r.items() if c not in ROLLUP_COLUMNS[:3]}
+            for k, r in by_key(inline, ["model_version", "region"]).items()
+        },
+        ["model_version", "region"],
+    )
 
 
 def test_conflicting_late_labels_are_bad_labels(con, tmp_path):
-    rows = {"ts": [dt.datetime(2026, 1, 5)] * 2, "model_version": ["v"] * 2,
-            "region": ["a"] * 2, "logits": [[1.0, 0.0]] * 2, "label": [None, None]}
+    rows = {
+        "ts": [dt.datetime(2026, 1, 5)] * 2,
+        "model_version": ["v"] * 2,
+        "region": ["a"] * 2,
+        "logits": [[1.0, 0.0]] * 2,
+        "label": [None, None],
+    }
     write_parquet(rows, tmp_path / "p.parquet")
     pq.write_table(pa.table({"id": [0, 0, 1], "label": [0, 1, 1]}), tmp_path / "l.parquet")
-    pq.write_table(pa.table({"id": [0, 1], "ts": rows["ts"], "model_version": ["v", "v"],
-                             "logits": rows["logits"]}), tmp_path / "p.parquet")
-    out = run_query(con, "rollup", {"logs": str(tmp_path / "p.parquet"), "labels":
-                                    str(tmp_path / "l.parquet"), "id_col": "id"}).to_pylist()
+    pq.write_table(
+        pa.table(
+            {"id": [0, 1], "ts": rows["ts"], "model_version": ["v", "v"], "logits": rows["logits"]}
+        ),
+        tmp_path / "p.parquet",
+    )
+    out = run_query(
+        con,
+        "rollup",
+        {
+            "logs": str(tmp_path / "p.parquet"),
+            "labels": str(tmp_path / "l.parquet"),
+            "id_col": "id",
+        },
+    ).to_pylist()
     assert (out[0]["bad_labels"], out[0]["evaluated_rows"]) == (1, 1)
 
 
@@ -286,33 +370,48 @@ def test_schema_drift_across_files_still_reads(con, tmp_path):
     write_parquet(first, folder / "part-1.parquet", logits_type=pa.float32())
     write_parquet({**second, "country": ["fr"] * 300}, folder / "part-2.parquet")
     table = run_query(con, "rollup", {"logs": str(folder), "grain": "month"})
-    first32 = {**first, "logits": [None if z is None else list(np.float32(z).astype(float))
-                                   for z in first["logits"]]}
+    first32 = {
+        **first,
+        "logits": [
+            None if z is None else list(np.float32(z).astype(float)) for z in first["logits"]
+        ],
+    }
     merged = {c: first32[c] + second[c] for c in first}
     check_rollup(table, expected_rollup(merged, ["model_version"], "month"), ["model_version"])
 
 
 def test_hive_partitioned_folder(con, logs, tmp_path):
     rows, path = logs
-    con.sql(f"COPY (SELECT * FROM read_parquet('{path}')) TO '{tmp_path / 'hive'}' "
-            "(FORMAT parquet, PARTITION_BY (region))")
+    con.sql(
+        f"COPY (SELECT * FROM read_parquet('{path}')) TO '{tmp_path / 'hive'}' "
+        "(FORMAT parquet, PARTITION_BY (region))"
+    )
     table = run_query(con, "rollup", {"logs": str(tmp_path / "hive"), "segment_cols": "region"})
-    check_rollup(table, expected_rollup(rows, ["model_version", "region"]),
-                 ["model_version", "region"])
+    check_rollup(
+        table, expected_rollup(rows, ["model_version", "region"]), ["model_version", "region"]
+    )
 
 
 def test_text_labels_map_through_classes(con, tmp_path):
     names = ["cat", "dog", "eel"]
     rows = random_logs(np.random.default_rng(4), n=300, k=3)
-    text_rows = {**rows, "label": [None if y is None else names[y] if 0 <= y < 3 else "yak"
-                                   for y in rows["label"]]}
-    table = pa.table({"ts": pa.array(rows["ts"], pa.timestamp("us")),
-                      "model_version": rows["model_version"], "region": rows["region"],
-                      "logits": pa.array(rows["logits"], pa.list_(pa.float64())),
-                      "label": text_rows["label"]})
+    text_rows = {
+        **rows,
+        "label": [None if y is None else names[y] if 0 <= y < 3 else "yak" for y in rows["label"]],
+    }
+    table = pa.table(
+        {
+            "ts": pa.array(rows["ts"], pa.timestamp("us")),
+            "model_version": rows["model_version"],
+            "region": rows["region"],
+            "logits": pa.array(rows["logits"], pa.list_(pa.float64())),
+            "label": text_rows["label"],
+        }
+    )
     pq.write_table(table, tmp_path / "text.parquet")
-    got = run_query(con, "rollup", {"logs": str(tmp_path / "text.parquet"),
-                                    "classes": " cat, dog,eel "})
+    got = run_query(
+        con, "rollup", {"logs": str(tmp_path / "text.parquet"), "classes": " cat, dog,eel "}
+    )
     check_rollup(got, expected_rollup(rows, ["model_version"]), ["model_version"])
 
 
@@ -323,15 +422,29 @@ def test_other_score_kinds_match_numpy(con, tmp_path, kind):
     s = rng.normal(size=n) * 2
     p1 = 1 / (1 + np.exp(-s))
     labels = (rng.random(n) < p1).astype(int)
-    column = {"binary_logit": list(s), "binary_prob": list(p1),
-              "probs": [[1 - q, q] for q in p1]}[kind]
-    table = pa.table({"ts": pa.array([dt.datetime(2026, 1, 5)] * n, pa.timestamp("us")),
-                      "model_version": ["v"] * n, "score": column, "label": labels})
+    column = {"binary_logit": list(s), "binary_prob": list(p1), "probs": [[1 - q, q] for q in p1]}[
+        kind
+    ]
+    table = pa.table(
+        {
+            "ts": pa.array([dt.datetime(2026, 1, 5)] * n, pa.timestamp("us")),
+            "model_version": ["v"] * n,
+            "score": column,
+            "label": labels,
+        }
+    )
     pq.write_table(table, tmp_path / "b.parquet")
-    got = run_query(con, "rollup", {"logs": str(tmp_path / "b.parquet"), "scores_col": "score",
-                                    "scores_kind": kind})
-    as_logits = {"ts": [dt.datetime(2026, 1, 5)] * n, "model_version": ["v"] * n,
-                 "logits": [[0.0, z] for z in s], "label": list(labels)}
+    got = run_query(
+        con,
+        "rollup",
+        {"logs": str(tmp_path / "b.parquet"), "scores_col": "score", "scores_kind": kind},
+    )
+    as_logits = {
+        "ts": [dt.datetime(2026, 1, 5)] * n,
+        "model_version": ["v"] * n,
+        "logits": [[0.0, z] for z in s],
+        "label": list(labels),
+    }
     want = expected_rollup(as_logits, ["model_version"])
     for key, row in by_key(got, ["model_version"]).items():
         for column, value in want[key].items():
@@ -342,13 +455,21 @@ def test_other_score_kinds_match_numpy(con, tmp_path, kind):
 def test_segments_joins_business_table(con, logs, tmp_path):
     rows, path = logs
     (tmp_path / "biz.csv").write_text("region,tier,revenue\na,gold,120.5\nc,bronze,3\n")
-    out = run_query(con, "segments", {"logs": path, "segment_cols": "region",
-                                      "business": str(tmp_path / "biz.csv")})
+    out = run_query(
+        con,
+        "segments",
+        {"logs": path, "segment_cols": "region", "business": str(tmp_path / "biz.csv")},
+    )
     assert out.column_names == ROLLUP_COLUMNS + ["tier", "revenue"]
     rollup = run_query(con, "rollup", {"logs": path, "segment_cols": "region"})
-    check_rollup(out, {k: {c: v for c, v in r.items() if c not in ROLLUP_COLUMNS[:3]}
-                       for k, r in by_key(rollup, ["model_version", "region"]).items()},
-                 ["model_version", "region"])
+    check_rollup(
+        out,
+        {
+            k: {c: v for c, v in r.items() if c not in ROLLUP_COLUMNS[:3]}
+            for k, r in by_key(rollup, ["model_version", "region"]).items()
+        },
+        ["model_version", "region"],
+    )
     tiers = {r["region"]: (r["tier"], r["revenue"]) for r in out.to_pylist()}
     assert tiers == {"a": ("gold", 120.5), "b": (None, None)}
 
@@ -357,5 +478,8 @@ def test_segments_refuses_duplicate_business_keys(con, logs, tmp_path):
     _, path = logs
     (tmp_path / "biz.csv").write_text("region,tier\na,gold\na,silver\n")
     with pytest.raises(dbmetrics.DbmetricsError, match="more than one row"):
-        run_query(con, "segments", {"logs": path, "segment_cols": "region",
-                                    "business": str(tmp_path / "biz.csv")})
+        run_query(
+            con,
+            "segments",
+            {"logs": path, "segment_cols": "region", "business": str(tmp_path / "biz.csv")},
+        )

@@ -1,0 +1,14 @@
+"""Saved queries: .sql files with a parameter header, found beside ours, rendered safely.
+
+list_queries(query_dirs=None) -> list[QueryInfo]
+get_query(name, query_dirs=None) -> QueryInfo
+render_query(con, name, params, query_dirs=None) -> (sql, bound)
+run_query(con, name, params, query_dirs=None) -> pyarrow.Table
+"""
+
+from .catalog import get_query, list_queries
+from .execute import run_query
+from .header import Param, QueryInfo
+from .render import render_query
+
+__all__ = ["Param", "QueryInfo", "get_query", "list_queries", "render_query", "run_query"]
