@@ -112,21 +112,63 @@ def compute_states(
     window: bool = False,
     classes: bool = False,
 ) -> tuple:
-    """(STATE, CLASS_STATE or None) for the log (or the time window) as Arrow tables, from
-    one scan; memory stays one batch plus the small per-batch class sums."""
-    kernel_name = KINDS[roles.kind][0]
-    kernel, pad = KERNELS[kernel_name]
-    distribution = DISTRIBUTIONS[kernel_name]
-    keys = [roles.version, *roles.segments]
+    """(STATE, CLASS_STATE or None) for the log (or the time window): `partial_states`."""
+    states = partial_states(con, roles, values, window=window, classes=classes)
+    return states["state"], states.get("class_state")
+
+
+def partial_states(
+    con: duckdb.DuckDBPyConnection,
+    roles: ColumnRoles,
+    values: dict,
+    window: bool = False,
+    classes: bool = False,
+) -> dict:
+    """Every partial state of the log (or the time window) by name ("state", and
+    "class_state" when `classes`), as Arrow tables: the `predictions` rows streamed through
+    `states_of_rows`, or, when that stream fails, the UDF route over the same SQL."""
     source_sql = predictions(roles, window)
     reader = con.sql(source_sql, params=bound_values(source_sql, values)).to_arrow_reader(
         BATCH_ROWS
     )
-    fields = [f for f in reader.schema if f.name != "scores"] + [pa.field("stats", ROW_STATS_TYPE)]
+    try:
+        return states_of_rows(con, roles, reader, values, classes)
+    except (duckdb.Error, pa.ArrowException):
+        # An error inside the stream (a corrupt file, a bad cast) reaches us wrapped and
+        # without its context; the UDF route over the same SQL reports it as DuckDB words it.
+        pass
+    finally:
+        reader.close()
+    sqls = {"state": state(roles, window)}
+    if classes:
+        sqls["class_state"] = class_state(roles, window)
+    return {
+        name: con.sql(sql, params=bound_values(sql, values)).to_arrow_table()
+        for name, sql in sqls.items()
+    }
+
+
+def states_of_rows(
+    con: duckdb.DuckDBPyConnection,
+    roles: ColumnRoles,
+    rows: pa.RecordBatchReader,
+    values: dict,
+    classes: bool = False,
+) -> dict:
+    """Arrow rows in, partial states out: `rows` holds the `predictions` columns (day, the
+    version and segment columns, scores, label); returns {"state": STATE, "class_state":
+    CLASS_STATE (when `classes`)} summed per day x keys. Memory stays one batch plus the
+    small per-batch class sums. `con` only runs the summing SQL (it may be busy streaming
+    `rows`: a cursor of it is used)."""
+    kernel_name = KINDS[roles.kind][0]
+    kernel, pad = KERNELS[kernel_name]
+    distribution = DISTRIBUTIONS[kernel_name]
+    keys = [roles.version, *roles.segments]
+    fields = [f for f in rows.schema if f.name != "scores"] + [pa.field("stats", ROW_STATS_TYPE)]
     per_batch = []
 
     def batches():
-        for batch in sliced(reader):
+        for batch in sliced(rows):
             sm = score_matrix(batch.column("scores"), pad, dtype=None)
             y, y_present = integer_column(batch.column("label"))
             st = kernel(sm.values, sm.present, sm.lengths, y, y_present, int(values["bins"]))
@@ -134,28 +176,18 @@ def compute_states(
                 per_batch.append(class_partials(batch, sm, st, distribution, keys))
             yield with_row_stats(batch, st)
 
-    cursor = con.cursor()  # the streaming result above keeps `con` busy
+    cursor = con.cursor()
     try:
         cursor.register(ROWS_VIEW, pa.RecordBatchReader.from_batches(pa.schema(fields), batches()))
         state_sql = state(roles, rows=ROWS_VIEW)
-        state_table = cursor.sql(state_sql, params=bound_values(state_sql, values)).to_arrow_table()
-        return state_table, summed_classes(
-            cursor, per_batch, roles, reader.schema
-        ) if classes else None
-    except (duckdb.Error, pa.ArrowException):
-        # An error inside the stream (a corrupt file, a bad cast) reaches us wrapped and
-        # without its context; the UDF route over the same SQL reports it as DuckDB words it.
-        pass
+        states = {
+            "state": cursor.sql(state_sql, params=bound_values(state_sql, values)).to_arrow_table()
+        }
+        if classes:
+            states["class_state"] = summed_classes(cursor, per_batch, roles, rows.schema)
+        return states
     finally:
         cursor.close()
-        reader.close()
-    udf_state, udf_classes = state(roles, window), class_state(roles, window)
-    return (
-        con.sql(udf_state, params=bound_values(udf_state, values)).to_arrow_table(),
-        con.sql(udf_classes, params=bound_values(udf_classes, values)).to_arrow_table()
-        if classes
-        else None,
-    )
 
 
 def summed_classes(cursor, per_batch: list, roles: ColumnRoles, schema: pa.Schema) -> pa.Table:
@@ -202,10 +234,10 @@ def engine_pays(con, roles: ColumnRoles, bound: dict, classes: bool) -> bool:
 
 def materialized_states(con, roles: ColumnRoles, values: dict, classes: bool) -> dict:
     """Compute STATE (and CLASS_STATE), register them on `con`, return the SQL reading them."""
-    state_table, class_table = compute_states(con, roles, values, classes=classes)
-    con.register(STATE_VIEW, state_table)
+    states = partial_states(con, roles, values, classes=classes)
+    con.register(STATE_VIEW, states["state"])
     fragments = {"state": f"SELECT * FROM {STATE_VIEW}"}
     if classes:
-        con.register(CLASS_STATE_VIEW, class_table)
+        con.register(CLASS_STATE_VIEW, states["class_state"])
         fragments["class_state"] = f"SELECT * FROM {CLASS_STATE_VIEW}"
     return fragments
