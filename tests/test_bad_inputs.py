@@ -502,6 +502,7 @@ CLI_CASES = [(q.name, p.name) for q in list_queries() for p in q.params] + [
 ]
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("query,param", CLI_CASES)
 def test_hostile_cli_parameters_are_refused_or_bound(small_log, tmp_path, query, param):
     """Through the real CLI on a database file: one-line error or a result, and the canary
@@ -534,6 +535,7 @@ NAMES = st.text(
 ).filter(lambda s: s.strip() == s and "," not in s)
 
 
+@pytest.mark.slow
 @settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(version=NAMES)
 def test_any_identifier_is_refused_or_appears_only_double_quoted(version):
