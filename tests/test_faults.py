@@ -98,7 +98,9 @@ def test_killed_check_keeps_the_previous_report(tmp_path):
 def store_state(store: Path) -> tuple:
     manifest = json.loads((store / "manifest.json").read_text())
     listed = {
-        entry[kind] for entry in manifest["days"].values() for kind in ("state", "class_state")
+        entry["files"][kind]
+        for entry in manifest["days"].values()
+        for kind in ("state", "class_state")
     }
     return manifest, listed
 
@@ -150,18 +152,30 @@ def test_killed_partials_update_leaves_the_previous_store(tmp_path):
     before = rollup_from(store, tmp_path)
 
     proc = start(*update, "--full", cwd=tmp_path)
-    written = lambda: any(".2." in p.name for p in (store / "state").iterdir())  # noqa: E731
-    assert kill_when(proc, written), "the update finished before the kill"
+    staged = lambda: any((store / ".staging").glob("*/state.*.tmp"))  # noqa: E731
+    assert kill_when(proc, staged), "the update finished before the kill"
     assert store_state(store) == (manifest, listed)  # the manifest was not replaced
     assert all((store / f).exists() for f in listed)
     assert rollup_from(store, tmp_path) == before
 
+    full = time.monotonic()
+    assert start(*update, "--full", cwd=tmp_path).wait(120) == 0
+    full = time.monotonic() - full
+    for delay in (0.1 + 0.9 * full * i / 6 for i in range(7)):  # kills across an update
+        proc = start(*update, "--full", cwd=tmp_path)
+        time.sleep(delay)
+        proc.send_signal(signal.SIGKILL)
+        proc.wait(30)
+        manifest, listed = store_state(store)
+        assert all((store / f).exists() for f in listed)
+        assert rollup_from(store, tmp_path) == before
+
     assert start(*update, cwd=tmp_path).wait(120) == 0
-    previous = listed
     manifest, listed = store_state(store)
     on_disk = {
         f"{kind}/{p.name}" for kind in ("state", "class_state") for p in (store / kind).iterdir()
     }
-    assert on_disk == listed | previous  # the killed run's stray files are gone; the
-    # previous generation stays one update longer for queries that read its manifest
+    assert on_disk == listed | set(manifest["retired"])  # the killed runs' files are gone;
+    # the previous generation stays one update longer for queries that read its manifest
+    assert not list((store / ".staging").iterdir()) and not (store / ".pending.json").exists()
     assert rollup_from(store, tmp_path) == before

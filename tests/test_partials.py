@@ -1,7 +1,8 @@
 """The partials store: per-day additive states that the saved queries roll up instead of logs.
 
 Specification: rolled up from a store, every template returns the same table as the direct
-computation (up to float rounding); an update reads only new and recently relabelled days;
+computation (up to float rounding); an update reads only new days and days whose rows or
+labels changed;
 re-running a day replaces it (no double counting); an interrupted update leaves the previous
 store intact; a store answers only for the keys it was built with.
 """
@@ -46,15 +47,16 @@ def test_saved_queries_from_a_store_equal_the_direct_computation(
     same_table(direct, rolled)
 
 
-def test_an_update_recomputes_only_recent_days_and_never_double_counts(
+def test_an_update_recomputes_only_changed_days_and_never_double_counts(
     same_table, con, demo, tmp_path
 ):
     store = tmp_path / "store"
     first = partials.update(con, demo, store)
-    assert first["days_written"] == 21 and first["recomputed_from"] is None
-    again = partials.update(con, demo, store, relabel_days=3)
-    assert again["days_written"] == 3 and again["recomputed_from"] == "2026-01-23"
-    assert again["days_held"] == 21
+    assert first["days_written"] == 21
+    again = partials.update(con, demo, store)
+    assert again["days_written"] == 0 and again["days_held"] == 21
+    forced = partials.update(con, demo, store, since=dt.date(2026, 1, 23))
+    assert forced["days_written"] == 3 and forced["days_held"] == 21
     rolled = run_query(con, "rollup", {"partials": str(store)})
     assert sum(rolled.column("rows").to_pylist()) == 21 * 60
     same_table(run_query(con, "rollup", demo), rolled)
@@ -83,8 +85,8 @@ def test_new_days_and_late_labels_are_picked_up(same_table, con, tmp_path):
         logs.filter(pa.compute.greater_equal(logs["ts"], cut)), tmp_path / "week2.parquet"
     )
     pq.write_table(labels, tmp_path / "labels.parquet")
-    summary = partials.update(con, params, tmp_path / "store", relabel_days=10)
-    assert summary["recomputed_from"] == "2026-01-02"
+    summary = partials.update(con, params, tmp_path / "store")
+    assert summary["days_written"] == 14  # the new week, and the old days with new labels
     same_table(
         run_query(con, "rollup", params),
         run_query(con, "rollup", {"partials": str(tmp_path / "store")}),
@@ -99,7 +101,7 @@ def test_an_interrupted_update_leaves_the_previous_store(
     before = run_query(con, "rollup", {"partials": str(store)})
     manifest = (store / "manifest.json").read_text()
     calls = []
-    original = store_module.Store.write_day
+    original = store_module.Publisher.stage
 
     def dies_midway(self, *args):
         calls.append(args)
@@ -107,7 +109,7 @@ def test_an_interrupted_update_leaves_the_previous_store(
             raise KeyboardInterrupt
         return original(self, *args)
 
-    monkeypatch.setattr(store_module.Store, "write_day", dies_midway)
+    monkeypatch.setattr(store_module.Publisher, "stage", dies_midway)
     with pytest.raises(KeyboardInterrupt):
         partials.update(con, demo, store, full=True)
     monkeypatch.undo()
@@ -116,16 +118,16 @@ def test_an_interrupted_update_leaves_the_previous_store(
 
     def listed():
         return {
-            e[k]
+            e["files"][k]
             for e in json.loads((store / "manifest.json").read_text())["days"].values()
             for k in ("state", "class_state")
         }
 
     kept = listed()
-    partials.update(con, demo, store)  # the next update removes the stray files, and keeps
+    partials.update(con, demo, store, full=True)  # removes the stray files, and keeps
     on_disk = {f"{p.parent.name}/{p.name}" for p in store.glob("*/*.parquet")}
     assert on_disk == listed() | kept  # the previous generation for readers still on it
-    assert not list(store.glob(".*.tmp")) and not list(store.glob("*/.*.tmp"))
+    assert not list(store.glob(".*.tmp")) and not list((store / ".staging").iterdir())
 
 
 def test_a_store_answers_only_for_its_own_keys_and_bins(con, demo, tmp_path):

@@ -33,47 +33,67 @@ def command():
     "settings",
     multiple=True,
     metavar="PARAM=VALUE",
-    help="A column-role parameter (logs, time_col, scores_col, ...); repeat for more.",
+    help="A column-role parameter (logs, time_col, scores_col, ...); repeat for more. "
+    "An existing store reuses the ones it was built with.",
 )
 @click.option(
     "--relabel-days",
-    type=click.IntRange(min=0),
-    default=14,
-    show_default=True,
-    help="Recompute this many of the latest stored days, whose labels may have arrived since.",
+    type=click.IntRange(min=0, max=100_000),
+    default=None,
+    help="Bound the work: a day whose labels changed more than this many days before the "
+    "newest new or changed day keeps its stored state and is reported as stale "
+    "(default: recompute every changed day).",
 )
 @click.option(
     "--since",
     type=click.DateTime(formats=["%Y-%m-%d"]),
     metavar="YYYY-MM-DD",
-    help="Recompute every day from this one on (instead of --relabel-days).",
+    help="Also recompute every day from this one on, changed or not.",
 )
 @click.option("--full", is_flag=True, help="Recompute every day in the log.")
+@click.option(
+    "--drop-vanished",
+    is_flag=True,
+    help="Follow the logs where stored days lost rows (retention): drop or recompute them "
+    "(default: keep their stored state, with a warning).",
+)
 @click.pass_context
-def update_command(ctx, store, settings, relabel_days, since, full):
-    """Add new days to the store and refresh recent ones, in one atomic step.
+def update_command(ctx, store, settings, relabel_days, since, full, drop_vanished):
+    """Add new days to the store and recompute the days whose rows or labels changed, in
+    one atomic step.
 
-    Only the recomputed days are read from the logs (the time filter reaches the
-    Parquet scan); an interrupted update leaves the previous store intact.
+    Each day's rows and labels are fingerprinted (time, id and label columns only, not the
+    scores); only changed days are read in full. One update runs at a time (a lock file);
+    an interrupted update leaves the previous store intact.
 
     \b
     Example:
       dbmetrics partials update --store metrics_store --set logs=demo_parquet/logs \\
           --set labels=demo_parquet/labels/labels.parquet --set id_col=prediction_id
+      dbmetrics partials update --store metrics_store
     """
     from dbmetrics import partials, queries
-    from dbmetrics.queries.header import COLUMN_MAP
+    from dbmetrics.partials.update import KNOWN
 
     session = ctx.obj
     declared = [p.name for p in queries.get_query("rollup").params]
-    merged = merge("rollup", declared, session.project, parse_settings(settings))
-    params = {k: v for k, v in merged.items() if k in COLUMN_MAP}
+    given = parse_settings(settings)
+    merged = merge("rollup", declared, session.project, given)
+    params = {k: v for k, v in merged.items() if k in KNOWN or k in given}
     day = since.date() if isinstance(since, dt.datetime) else None
-    summary = session.execute(
-        lambda con: partials.update(
-            con, params, store, since=day, relabel_days=relabel_days, full=full
-        )
+    job = partials.Update(
+        store,
+        params,
+        since=day,
+        relabel_days=relabel_days,
+        full=full,
+        drop_vanished=drop_vanished,
+        warn=lambda message: click.echo(f"warning: {message}", err=True),
+        waiting=session.note,
     )
+    with job:
+        session.execute(job.compute)  # reading the logs: Ctrl-C interrupts DuckDB
+        summary = job.publish()  # in this thread: Ctrl-C stops it before the manifest swap
     ctx.exit(emit(session, pa.Table.from_pylist([summary]), None, None, None))
 
 
@@ -81,7 +101,8 @@ def update_command(ctx, store, settings, relabel_days, since, full):
 @click.option("--store", required=True, metavar="DIR", help="The store folder.")
 @click.pass_context
 def show_command(ctx, store):
-    """Show a store's column roles and the days it holds.
+    """Show a store's column roles, the days it holds, the days the last update left
+    stale and any file the manifest lists that is missing (the next update recomputes it).
 
     \b
     Example:
@@ -90,6 +111,9 @@ def show_command(ctx, store):
     from dbmetrics import partials
 
     summary = partials.describe(store)
+    for problem in ("stale_days", "missing_files"):
+        if summary[problem]:
+            click.echo(f"warning: {problem.replace('_', ' ')}: {summary[problem]}", err=True)
     ctx.exit(
         emit(
             ctx.obj,

@@ -1,44 +1,58 @@
-"""The saved queries' {{state}} and {{class_state}} read from a partials store instead of logs.
+"""The saved queries' state placeholders ({{state}}, {{class_state}}, ... one per state kind)
+read from a partials store instead of logs.
 
 A store may hold finer segments than a query asks for: the states are additive, so the
-query's version and segment columns are kept and every other key is summed away.
+query's version and segment columns are kept and every other key is summed away. The
+column roles a store was built with are fixed: a query that gives one with another value
+is refused, naming the parameter and both values.
 """
-
-from pathlib import Path
 
 from dbmetrics.errors import DbmetricsError
 from dbmetrics.queries.schema import quote
-from dbmetrics.queries.state_sql import CLASS_STATE_COLUMNS, STATE_COLUMNS
 from dbmetrics.queries.values import split_names
 
+from .kinds import STATE_KINDS, StateKind
 from .store import Store
 
-SUMMED_BY_KIND = {"state": "bin", "class_state": "class"}
 UNAVAILABLE = None  # a store keeps sums, not predictions: render refuses {{predictions}}
+FIXED = ("time_col", "scores_col", "scores_kind", "label_col", "labels", "id_col", "classes")
 
 
-def summed(kind: str, keys: str, param: str) -> str:
-    """SELECT day, keys, bin|class, the sums of every additive column, from the store files."""
-    extra = SUMMED_BY_KIND[kind]
-    columns = STATE_COLUMNS if kind == "state" else CLASS_STATE_COLUMNS
-    sums = ",\n    ".join(
-        f"CAST(sum({c}) AS BIGINT) AS {c}" if not c.startswith("sum_") else f"fsum({c}) AS {c}"
-        for c in columns
-        if c not in ("day", extra)
-    )
-    return f"SELECT day, {keys}, {extra},\n    {sums}\nFROM read_parquet(${param})\nGROUP BY ALL"
+def summed(kind: StateKind, keys: str, param: str) -> str:
+    """SELECT day, keys, the kind's own keys, the sums of its additive columns."""
+    own = ", ".join(kind.keys)
+    sums = ",\n    ".join(kind.summed(c) for c in kind.columns)
+    return f"SELECT day, {keys}, {own},\n    {sums}\nFROM read_parquet(${param})\nGROUP BY ALL"
 
 
-def store_fragments(texts: dict) -> tuple:
-    """(fragments, bound values) for a query run with partials=STORE."""
-    s = Store(Path(texts["partials"]))
+def check_roles(recorded: dict, logs, texts: dict, given: dict, root) -> None:
+    """Refuse a column-role parameter the query gives that the store was not built with."""
+    wanted = {k: texts[k] for k in FIXED if k in given}
+    if "timezone" in given:
+        wanted["timezone"] = str(given["timezone"]).strip() or "UTC"
+    if "logs" in given and logs is not None:
+        recorded = {**recorded, "logs": logs}
+        wanted["logs"] = texts["logs"]
+    for key, value in wanted.items():
+        if key in recorded and recorded[key] != value:
+            raise DbmetricsError(
+                f"partials: the store {root} was built with {key}={recorded[key]!r}; this "
+                f"query gives {key}={value!r}: leave `{key}` out or use a store built with it"
+            )
+
+
+def store_fragments(texts: dict, given: dict | None = None) -> tuple:
+    """(fragments, bound values) for a query run with partials=STORE; `given` are the
+    parameters the caller set (texts adds the defaults)."""
+    s = Store(texts["partials"])
     manifest = s.manifest()
-    if manifest is None or not manifest.get("days"):
+    if manifest is None or not manifest["days"]:
         raise DbmetricsError(
             f"partials: `{texts['partials']}` holds no summarised days; "
             "build it with `dbmetrics partials update`"
         )
     recorded = manifest["column_roles"]
+    check_roles(recorded, manifest["logs"], texts, given or {}, s.root)
     stored_keys = [recorded["version_col"], *split_names(recorded["segment_cols"])]
     version = texts["version_col"]
     segments = split_names(texts["segment_cols"])
@@ -53,10 +67,14 @@ def store_fragments(texts: dict) -> tuple:
             f"partials: the store was built with bins={recorded['bins']}; "
             f"this query asks for bins={texts['bins']}"
         )
+    absent = s.missing_files(manifest)
+    if absent:
+        raise DbmetricsError(
+            f"partials: the store {s.root} lists {len(absent)} file(s) that are gone "
+            f"(first {absent[0]}); `dbmetrics partials update` recomputes them"
+        )
     keys = ", ".join(quote(c) for c in (version, *segments))
     fragments = {
-        "state": summed("state", keys, "partials_state"),
-        "class_state": summed("class_state", keys, "partials_class_state"),
         "version_col": quote(version),
         "segment_cols": ", ".join(quote(c) for c in segments),
         "segments": "".join(f", {quote(c)}" for c in segments),
@@ -64,7 +82,14 @@ def store_fragments(texts: dict) -> tuple:
             f"cur.{quote(c)} IS NOT DISTINCT FROM ref.{quote(c)}" for c in segments
         )
         or "true",
+        "predictions": UNAVAILABLE,
     }
-    bound = {"partials_state": s.files("state"), "partials_class_state": s.files("class_state")}
-    fragments["predictions"] = UNAVAILABLE
+    bound = {}
+    for kind in STATE_KINDS:
+        lacking = [k for k, e in manifest["days"].items() if kind.name not in e["files"]]
+        if lacking:
+            fragments[kind.name] = None
+            continue
+        fragments[kind.name] = summed(kind, keys, f"partials_{kind.name}")
+        bound[f"partials_{kind.name}"] = s.files(kind.name, manifest)
     return fragments, bound

@@ -1,20 +1,47 @@
-"""Layout of a partials store and its all-or-nothing updates.
+"""Layout of a partials store, its lock, and the publish step every writer goes through.
 
-    STORE/manifest.json                     column roles, generation, and the file of each day
-    STORE/state/YYYY-MM-DD.G.parquet        STATE rows of that day (see queries/state_sql.py)
-    STORE/class_state/YYYY-MM-DD.G.parquet  CLASS_STATE rows of that day
+    STORE/manifest.json                 what the store holds (manifest.py)
+    STORE/KIND/STEM.G.parquet           one file per day per state kind (kinds.py), written
+                                        for generation G
+    STORE/.lock                         held (fcntl.flock) by the writer that publishes
+    STORE/.staging/XXXX/                one writer's staged files, and its own held .lock
+    STORE/.pending.json                 files being moved into place by a publish in progress
 
-An update writes new files under a new generation G, then replaces manifest.json in one
-os.replace, then deletes the files no longer listed. Readers take the file list from the
-manifest, so they see the whole store before or after an update, never a mix; a crash
-before the manifest is replaced leaves the old store intact (its stray files are removed
-by the next update).
+Publishing (`Publisher`, used by `partials update` and open to any other writer of day
+states, such as a Spark job):
+
+    with Store(root).locked():                          # optional: commit() takes it too
+        pub = Publisher(store, base_generation)         # generation the writer started from
+        pub.stage("state", "2026-01-05", table)         # one file per day per kind
+        pub.stage("class_state", "2026-01-05", table)
+        pub.commit(days, column_roles=..., logs=..., stale=...)
+
+`commit` takes the store lock, refuses (DbmetricsError, nothing published) when the
+manifest's generation is no longer `base_generation`, lists the final names in
+.pending.json, renames the staged files into place, fsyncs them and their folders, and
+replaces manifest.json in one os.replace. Readers take the file list from the manifest, so
+they see the whole store before or after a publish, never a mix; after a kill -9 at any
+moment the store is the old or the new one. The files the new manifest no longer lists are
+recorded as `retired` and deleted by the next publish (a reader still on the previous
+manifest can finish).
+
+Safety: a store folder is used only if it is new, empty, or holds a manifest. Files are
+created with O_EXCL | O_NOFOLLOW under random names, written through their descriptor, then
+renamed; a symlink where the store expects one of its folders is refused. Only files a
+manifest or .pending.json names, and dbmetrics' own temporary names, are ever deleted:
+foreign files in the folder are left alone. Leftovers of dead writers (their staging folder
+is no longer locked) are removed under the store lock.
 """
 
-import datetime as dt
+import contextlib
+import errno
+import fcntl
 import json
 import os
-from dataclasses import dataclass
+import re
+import secrets
+import shutil
+import stat
 from pathlib import Path
 
 import pyarrow as pa
@@ -22,106 +49,382 @@ import pyarrow.parquet as pq
 
 from dbmetrics.errors import DbmetricsError
 
-FORMAT = "dbmetrics-partials/1"
-KINDS = ("state", "class_state")
+from .kinds import KIND_NAMES
+from .manifest import DAY_FILE, FORMAT, day_file, is_day_key, validated
+
+LOCK = ".lock"
+STAGING = ".staging"
+PENDING = ".pending.json"
+TEMP = re.compile(r"\.manifest\.json\.[0-9A-Za-z]+\.tmp|\.pending\.json\.[0-9A-Za-z]+\.tmp")
+OLD_TEMP = re.compile(r"\..+\.[0-9]+\.tmp")  # format 1 wrote `.NAME.PID.tmp`
+OWN_ENTRIES = {LOCK, STAGING, PENDING}
 
 
-def atomic_write(path: Path, write) -> None:
-    """Call write(tmp_path), flush it to disk, then move it over `path`: after a crash or a
-    power loss `path` holds the old or the new content, never a part."""
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+def create_exclusive(path: Path):
+    """A new file opened for writing; fails if anything (a symlink too) is at `path`."""
+    flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_NOFOLLOW | getattr(os, "O_CLOEXEC", 0)
+    return os.fdopen(os.open(path, flags, 0o666), "wb")
+
+
+def write_new(folder: Path, prefix: str, write) -> Path:
+    """write(file) into a new randomly named file in `folder`, flushed to disk; its path."""
+    path = folder / f"{prefix}.{secrets.token_hex(8)}.tmp"
     try:
-        write(tmp)
-        with open(tmp, "rb+") as f:
+        with create_exclusive(path) as f:
+            write(f)
+            f.flush()
             os.fsync(f.fileno())
-        os.replace(tmp, path)
+    except BaseException:
+        path.unlink(missing_ok=True)
+        raise
+    return path
+
+
+def fsync_dir(folder: Path) -> None:
+    fd = os.open(folder, os.O_RDONLY | getattr(os, "O_DIRECTORY", 0))
+    try:
+        os.fsync(fd)
     finally:
-        tmp.unlink(missing_ok=True)
+        os.close(fd)
 
 
-@dataclass(frozen=True)
+def real_dir(path: Path, create: bool = False) -> Path:
+    """`path` as a folder of the store: refused if it is a symlink or not a folder."""
+    try:
+        mode = os.lstat(path).st_mode
+    except FileNotFoundError:
+        if not create:
+            raise
+        path.mkdir(mode=0o777, exist_ok=True)
+        mode = os.lstat(path).st_mode
+    if stat.S_ISLNK(mode) or not stat.S_ISDIR(mode):
+        raise DbmetricsError(
+            f"partials: {path} is not a plain folder (a symbolic link or a file); "
+            "the store does not write through it"
+        )
+    return path
+
+
+def try_lock(fd: int, wait: bool) -> bool:
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | (0 if wait else fcntl.LOCK_NB))
+        return True
+    except OSError as exc:
+        if exc.errno in (errno.EWOULDBLOCK, errno.EAGAIN, errno.EACCES):
+            return False
+        raise
+
+
+def open_lock(path: Path) -> int:
+    flags = os.O_RDWR | os.O_CREAT | os.O_NOFOLLOW | getattr(os, "O_CLOEXEC", 0)
+    try:
+        return os.open(path, flags, 0o666)
+    except OSError as exc:
+        if exc.errno == errno.ELOOP:
+            raise DbmetricsError(
+                f"partials: {path} is a symbolic link; the store does not write through it"
+            ) from None
+        raise DbmetricsError(
+            f"partials: cannot open the lock file {path} ({exc.strerror})"
+        ) from None
+
+
 class Store:
-    root: Path
+    """A store folder. `locked()` is re-entrant within one Store object."""
+
+    def __init__(self, root):
+        self.root = Path(root)
+        self._lock_fd = None
+        self._depth = 0
 
     @property
     def manifest_path(self) -> Path:
         return self.root / "manifest.json"
 
     def manifest(self) -> dict | None:
-        """The manifest, or None for a folder that holds no store yet."""
-        if not self.manifest_path.exists():
-            return None
+        """The manifest (validated, in the version-2 shape), or None for a folder that holds
+        no store yet."""
         try:
-            data = json.loads(self.manifest_path.read_text())
+            text = self.manifest_path.read_text()
+        except FileNotFoundError:
+            return None
+        except (OSError, UnicodeDecodeError) as exc:
+            raise DbmetricsError(f"partials: cannot read {self.manifest_path} ({exc})") from None
+        try:
+            data = json.loads(text)
         except ValueError as exc:
             raise DbmetricsError(
                 f"partials: {self.manifest_path} is not valid JSON ({exc})"
             ) from None
-        if not isinstance(data, dict) or data.get("format") != FORMAT:
-            raise DbmetricsError(
-                f"partials: {self.manifest_path} is not a dbmetrics partials "
-                f"manifest (expected format {FORMAT})"
-            )
-        return data
+        return validated(data, str(self.manifest_path))
 
-    def days(self) -> list:
-        manifest = self.manifest() or {}
-        return sorted(dt.date.fromisoformat(d) for d in manifest.get("days", {}))
-
-    def files(self, kind: str) -> list:
+    def files(self, kind: str, manifest: dict | None = None) -> list:
         """Absolute paths of every day's file of `kind`, from the manifest."""
-        manifest = self.manifest() or {}
-        return [
-            str(self.root / entry[kind]) for _, entry in sorted(manifest.get("days", {}).items())
-        ]
+        manifest = manifest or self.manifest() or {"days": {}}
+        return [str(self.root / entry["files"][kind]) for entry in manifest["days"].values()]
 
-    def write_day(self, kind: str, day: dt.date, generation: int, table: pa.Table) -> str:
-        """Write a day's table under a new name; returns its path relative to the root."""
-        relative = f"{kind}/{day.isoformat()}.{generation}.parquet"
-        path = self.root / relative
-        path.parent.mkdir(parents=True, exist_ok=True)
-        atomic_write(path, lambda tmp: pq.write_table(table, tmp, compression="zstd"))
-        return relative
+    def missing_files(self, manifest: dict) -> list:
+        """Files the manifest lists that are not in the store (relative paths)."""
+        return sorted(
+            rel
+            for entry in manifest["days"].values()
+            for rel in entry["files"].values()
+            if not (self.root / rel).is_file()
+        )
 
-    def commit(self, manifest: dict) -> None:
-        """Publish `manifest` in one step, then delete the files neither it nor the manifest
-        it replaces lists (a query that read the old manifest can still read its files; they
-        go at the next update), and stray temporary files of killed runs."""
-        self.root.mkdir(parents=True, exist_ok=True)
-        previous = self.manifest() or {}
-        text = json.dumps({**manifest, "format": FORMAT}, indent=2, sort_keys=True)
-        atomic_write(self.manifest_path, lambda tmp: tmp.write_text(text + "\n"))
-        self.remove_unlisted([manifest, previous])
+    @contextlib.contextmanager
+    def locked(self, waiting=None):
+        """Hold the store's lock file (fcntl.flock; the OS releases it if the process dies).
+        waiting(message) is called once if another writer holds it and we wait."""
+        if self._depth:
+            self._depth += 1
+            try:
+                yield self
+            finally:
+                self._depth -= 1
+            return
+        self.check_folder()
+        real_dir(self.root, create=True)
+        fd = open_lock(self.root / LOCK)
+        try:
+            if not try_lock(fd, wait=False):
+                if waiting is not None:
+                    waiting(f"partials: {self.root} is being updated by another process; waiting")
+                try_lock(fd, wait=True)
+            self._lock_fd, self._depth = fd, 1
+            self.remove_leftovers()
+            yield self
+        finally:
+            self._lock_fd, self._depth = None, 0
+            os.close(fd)  # releases the lock
 
-    def remove_unlisted(self, manifests: list) -> None:
-        listed = {
-            entry[kind] for m in manifests for entry in m.get("days", {}).values() for kind in KINDS
-        }
-        for kind in KINDS:
+    def check_folder(self) -> None:
+        """Refuse a folder that holds something and no store: the store would share it."""
+        if not self.root.exists() or self.manifest_path.exists():
+            return
+        if not self.root.is_dir():
+            raise DbmetricsError(f"partials: {self.root} is not a folder")
+        pending = self.pending()
+        foreign = []
+        for entry in self.root.iterdir():
+            if entry.name in OWN_ENTRIES or TEMP.fullmatch(entry.name):
+                continue
+            if (
+                entry.name in KIND_NAMES
+                and entry.is_dir()
+                and not entry.is_symlink()
+                and all(f"{entry.name}/{f.name}" in pending for f in entry.iterdir())
+            ):
+                continue
+            foreign.append(entry.name)
+        if foreign:
+            raise DbmetricsError(
+                f"partials: {self.root} is not empty and holds no partials store "
+                f"(no manifest.json; found {', '.join(sorted(foreign)[:3])}); "
+                "give a new or empty folder"
+            )
+
+    def pending(self) -> set:
+        try:
+            listed = json.loads((self.root / PENDING).read_text())
+        except (OSError, ValueError):
+            return set()
+        if not isinstance(listed, list):
+            return set()
+        return {p for p in listed if isinstance(p, str) and DAY_FILE.fullmatch(p)}
+
+    def remove_leftovers(self) -> None:
+        """Under the lock: files a dead publish moved into place but never listed, the
+        staging folders of dead writers, and temporary files of dead runs."""
+        manifest = self.manifest() or {"days": {}, "retired": []}
+        listed = {rel for e in manifest["days"].values() for rel in e["files"].values()}
+        listed.update(manifest["retired"])
+        for rel in self.pending() - listed:
+            unlink_plain(self.root / rel)
+        (self.root / PENDING).unlink(missing_ok=True)
+        for entry in self.root.iterdir():
+            if TEMP.fullmatch(entry.name) or OLD_TEMP.fullmatch(entry.name):
+                unlink_plain(entry)
+        for kind in KIND_NAMES:
             folder = self.root / kind
-            if folder.is_dir():
-                for path in folder.iterdir():
-                    if f"{kind}/{path.name}" not in listed:
-                        path.unlink(missing_ok=True)
-        for stray in self.root.glob(".manifest.json.*.tmp"):
-            stray.unlink(missing_ok=True)
+            if folder.is_dir() and not folder.is_symlink():
+                for entry in folder.iterdir():
+                    if OLD_TEMP.fullmatch(entry.name):
+                        unlink_plain(entry)
+        staging = self.root / STAGING
+        if staging.is_dir() and not staging.is_symlink():
+            for folder in staging.iterdir():
+                remove_if_abandoned(folder)
+
+
+def unlink_plain(path: Path) -> None:
+    """Remove a file (a symlink itself, never its target)."""
+    with contextlib.suppress(FileNotFoundError, IsADirectoryError, PermissionError):
+        if not stat.S_ISDIR(os.lstat(path).st_mode):
+            path.unlink()
+
+
+def remove_if_abandoned(folder: Path) -> None:
+    """Remove a staging folder whose writer is gone (its lock file is not held)."""
+    if folder.is_symlink() or not folder.is_dir():
+        unlink_plain(folder)
+        return
+    try:
+        fd = os.open(folder / LOCK, os.O_RDWR | os.O_NOFOLLOW)
+    except OSError:
+        fd = None
+    try:
+        if fd is None or try_lock(fd, wait=False):
+            shutil.rmtree(folder, ignore_errors=True)
+    finally:
+        if fd is not None:
+            os.close(fd)
+
+
+class Publisher:
+    """Stage day files, then publish them with one manifest swap (see the module docstring).
+
+    base_generation: the manifest generation the writer's work started from (0 for a new
+    store); commit refuses if another writer published since.
+    """
+
+    def __init__(self, store: Store, base_generation: int):
+        self.store = store
+        self.base = base_generation
+        store.check_folder()
+        real_dir(store.root, create=True)
+        self.folder = real_dir(store.root / STAGING, create=True) / f"w{secrets.token_hex(8)}"
+        self.folder.mkdir(mode=0o777)
+        self._lock = open_lock(self.folder / LOCK)
+        try_lock(self._lock, wait=True)
+        self.staged = {}  # (kind, key) -> staged path
+
+    def stage(self, kind: str, key: str, table: pa.Table) -> None:
+        """Write `table` as the day `key`'s file of state kind `kind`."""
+        self._check(kind, key)
+        path = write_new(self.folder, kind, lambda f: pq.write_table(table, f, compression="zstd"))
+        self._put(kind, key, path)
+
+    def stage_file(self, kind: str, key: str, parquet_file) -> None:
+        """Copy an already written Parquet file in as the day `key`'s file of `kind`."""
+        self._check(kind, key)
+        with open(parquet_file, "rb") as src:
+            path = write_new(self.folder, kind, lambda f: shutil.copyfileobj(src, f))
+        self._put(kind, key, path)
+
+    def _check(self, kind: str, key: str) -> None:
+        if kind not in KIND_NAMES:
+            raise DbmetricsError(f"partials: no state kind `{kind}` (kinds: {KIND_NAMES})")
+        if not is_day_key(key):
+            raise DbmetricsError(f"partials: `{key}` is not a day key (YYYY-MM-DD or null)")
+
+    def _put(self, kind: str, key: str, path: Path) -> None:
+        old = self.staged.pop((kind, key), None)
+        if old is not None:
+            old.unlink(missing_ok=True)
+        self.staged[(kind, key)] = path
+
+    def commit(
+        self, days: dict, column_roles: dict, logs: str | None = None, stale: dict | None = None
+    ) -> int:
+        """Publish: the store then holds exactly `days` (key -> {"files": {kind: path} of a
+        day kept as stored, or {} for a staged day, "fingerprint": ... or None}). Returns the
+        new generation."""
+        with self.store.locked():
+            current = self.store.manifest() or {"generation": 0, "days": {}, "retired": []}
+            if current["generation"] != self.base:
+                raise DbmetricsError(
+                    f"partials: {self.store.root} moved from generation {self.base} to "
+                    f"{current['generation']} while this update ran (another writer "
+                    "published); nothing was published: run the update again"
+                )
+            generation = self.base + 1
+            moves, out_days = {}, {}
+            for key, entry in days.items():
+                files = dict(entry.get("files") or {})
+                for kind in KIND_NAMES:
+                    if (kind, key) in self.staged:
+                        files[kind] = day_file(kind, key, generation)
+                        moves[files[kind]] = self.staged[(kind, key)]
+                missing = [k for k in KIND_NAMES if k not in files]
+                if missing:
+                    raise DbmetricsError(
+                        f"partials: day {key} has no {', '.join(missing)} file to publish"
+                    )
+                out_days[key] = {"files": files, "fingerprint": entry.get("fingerprint")}
+            listed = {rel for e in out_days.values() for rel in e["files"].values()}
+            before = {rel for e in current["days"].values() for rel in e["files"].values()}
+            root = self.store.root
+            write_json(root, PENDING, sorted(moves))
+            for kind in {rel.split("/")[0] for rel in moves}:
+                real_dir(root / kind, create=True)
+            for rel, staged in moves.items():
+                os.replace(staged, root / rel)
+            for kind in {rel.split("/")[0] for rel in moves}:
+                fsync_dir(root / kind)
+            manifest = {
+                "format": FORMAT,
+                "generation": generation,
+                "column_roles": column_roles,
+                "logs": logs,
+                "days": out_days,
+                "stale": {k: v for k, v in (stale or {}).items() if k in out_days},
+                "retired": sorted(before - listed),
+            }
+            write_json(root, "manifest.json", manifest)
+            (root / PENDING).unlink(missing_ok=True)
+            for rel in set(current["retired"]) - listed:
+                unlink_plain(root / rel)
+            return generation
+
+    def close(self) -> None:
+        """Remove what is still staged (after a commit: nothing but the folder)."""
+        if self._lock is not None:
+            shutil.rmtree(self.folder, ignore_errors=True)
+            os.close(self._lock)
+            self._lock = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+def write_json(root: Path, name: str, data) -> None:
+    """Replace root/name with `data` as JSON in one step (new file, fsync, rename)."""
+    text = json.dumps(data, indent=2, sort_keys=True) + "\n"
+    tmp = write_new(root, f".{name}", lambda f: f.write(text.encode()))
+    try:
+        os.replace(tmp, root / name)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    fsync_dir(root)
 
 
 def describe(store) -> dict:
-    """The manifest and the range of days held, for `dbmetrics partials show`."""
-    s = Store(Path(store))
+    """The manifest, the days held, stale days and missing files, for `partials show`."""
+    from .manifest import sort_key
+
+    s = Store(store)
     manifest = s.manifest()
     if manifest is None:
         raise DbmetricsError(
             f"partials: `{store}` holds no store (no manifest.json); "
             "build one with `dbmetrics partials update`"
         )
-    days = s.days()
+    keys = sorted(manifest["days"], key=sort_key)
+    missing = s.missing_files(manifest)
     return {
         "store": str(s.root),
+        "format": manifest["format"],
         "generation": manifest["generation"],
-        "days": len(days),
-        "first_day": days[0].isoformat() if days else None,
-        "last_day": days[-1].isoformat() if days else None,
-        **{f"column_roles.{k}": v for k, v in manifest["column_roles"].items()},
+        "days": len(keys),
+        "first_day": keys[0] if keys else None,
+        "last_day": keys[-1] if keys else None,
+        "stale_days": "; ".join(f"{k}: {why}" for k, why in sorted(manifest["stale"].items()))
+        or None,
+        "missing_files": ", ".join(missing) or None,
+        **{f"column_roles.{k}": v for k, v in sorted(manifest["column_roles"].items())},
     }

@@ -65,7 +65,7 @@ def render_info(
     if all(p in texts for p in COLUMN_MAP) and texts.get("partials") is not None:
         from dbmetrics.partials import store_fragments  # partials builds on the saved queries
 
-        store_sql, store_values = store_fragments(texts)
+        store_sql, store_values = store_fragments(texts, params)
         filled.update(store_sql)
         values.update(store_values)
         filled.update(
