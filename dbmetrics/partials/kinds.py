@@ -10,7 +10,7 @@ here and its table in `compute_kinds`, nothing else.
 
 from dataclasses import dataclass
 
-from dbmetrics.queries.engine import compute_states
+from dbmetrics.queries.engine import partial_states
 from dbmetrics.queries.state_sql import CLASS_STATE_COLUMNS, STATE_COLUMNS
 
 
@@ -44,5 +44,4 @@ KIND_NAMES = tuple(k.name for k in STATE_KINDS)
 def compute_kinds(con, roles, values: dict) -> dict:
     """{kind name: Arrow table with day, keys and the kind's columns} for the rows of
     `roles.logs`, from one scan of the logs."""
-    state, class_state = compute_states(con, roles, values, classes=True)
-    return {"state": state, "class_state": class_state}
+    return partial_states(con, roles, values, classes=True)

@@ -146,8 +146,10 @@ class Store:
         no store yet."""
         try:
             text = self.manifest_path.read_text()
-        except FileNotFoundError:
+        except (FileNotFoundError, NotADirectoryError):
             return None
+        except ValueError as exc:  # a NUL in the path
+            raise DbmetricsError(f"partials: `{self.root}` is not a usable path ({exc})") from None
         except (OSError, UnicodeDecodeError) as exc:
             raise DbmetricsError(f"partials: cannot read {self.manifest_path} ({exc})") from None
         try:
