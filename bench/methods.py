@@ -11,6 +11,7 @@ and mean entropy. This is dbmetrics' `rollup` template; the other routes recompu
 independently so that a mismatch points at a bug.
 """
 
+import datetime as dt
 from dataclasses import dataclass
 
 import numpy as np
@@ -465,8 +466,61 @@ def partials_one_day(ctx):
     store = Path(ctx.temp_dir) / "bench_store_update"
     partials.update(con, partials_params(ctx), store, full=True)
 
+    last = partials.describe(store)["last_day"]
+
     def run():
-        partials.update(con, partials_params(ctx), store, relabel_days=1)
+        partials.update(con, partials_params(ctx), store, since=dt.date.fromisoformat(last))
+        return rollup_from_store(con, store)
+
+    return run
+
+
+LATE_DAYS = 7
+
+
+def quoted_path(path) -> str:
+    """A path as a SQL string literal (COPY ... TO takes no bound value)."""
+    return "'" + str(path).replace("'", "''") + "'"
+
+
+def partials_late_labels(ctx):
+    """Labels arrive for 7 scattered old days: the update finds them by their label
+    fingerprints and recomputes those 7 days only, then rolls the store up. Setup (untimed)
+    writes a copy of the log whose labels on those days are NULL and builds a store on it;
+    each run starts from a copy of that store (a few MB, copied inside the timed run)."""
+    import glob
+    import shutil
+    from pathlib import Path
+
+    from dbmetrics import partials
+
+    con = connect(ctx, True)
+    temp = Path(ctx.temp_dir)
+    days = con.execute(
+        "SELECT DISTINCT CAST(ts AS DATE) AS d FROM read_parquet($p) ORDER BY d", {"p": ctx.scan}
+    ).fetchall()
+    step = len(days) // (LATE_DAYS + 1)
+    late = [days[step * (i + 1)][0] for i in range(LATE_DAYS)]
+    unlabelled = temp / "bench_unlabelled"
+    unlabelled.mkdir(exist_ok=True)
+    for i, part in enumerate(sorted(glob.glob(ctx.scan))):
+        con.execute(
+            "COPY (SELECT * REPLACE (CASE WHEN CAST(ts AS DATE) IN (SELECT unnest($late)) "
+            "THEN NULL ELSE label END AS label) FROM read_parquet($part)) TO "
+            + quoted_path(unlabelled / f"part-{i:03d}.parquet")
+            + " (FORMAT parquet)",
+            {"late": late, "part": part},
+        )
+    pristine = temp / "bench_store_late_pristine"
+    shutil.rmtree(pristine, ignore_errors=True)
+    partials.update(con, {**partials_params(ctx), "logs": str(unlabelled / "*.parquet")}, pristine)
+    store = temp / "bench_store_late"
+
+    def run():
+        shutil.rmtree(store, ignore_errors=True)
+        shutil.copytree(pristine, store)
+        done = partials.update(con, partials_params(ctx), store)
+        assert done["days_written"] == LATE_DAYS, done
         return rollup_from_store(con, store)
 
     return run
@@ -485,4 +539,9 @@ METHODS = {
     "ce_sql": (ce_sql, "ce", "avg of the SQL cross-entropy (b1)"),
     "partials_build": (partials_build, "rollup", "dbmetrics partials: build the store, roll it up"),
     "partials_1day": (partials_one_day, "rollup", "partials update of the newest day + roll-up"),
+    "partials_7late": (
+        partials_late_labels,
+        "rollup",
+        "partials update after labels arrived for 7 scattered old days + roll-up",
+    ),
 }

@@ -186,7 +186,7 @@ class Store:
                 self._depth -= 1
             return
         self.check_folder()
-        real_dir(self.root, create=True)
+        self.make_root()
         fd = open_lock(self.root / LOCK)
         try:
             if not try_lock(fd, wait=False):
@@ -199,6 +199,16 @@ class Store:
         finally:
             self._lock_fd, self._depth = None, 0
             os.close(fd)  # releases the lock
+
+    def make_root(self) -> None:
+        """The store folder, created with its parents if absent (it may be a symlink: the
+        user named it)."""
+        try:
+            self.root.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise DbmetricsError(
+                f"partials: cannot create the store folder {self.root} ({exc.strerror})"
+            ) from None
 
     def check_folder(self) -> None:
         """Refuse a folder that holds something and no store: the store would share it."""
@@ -294,7 +304,7 @@ class Publisher:
         self.store = store
         self.base = base_generation
         store.check_folder()
-        real_dir(store.root, create=True)
+        store.make_root()
         self.folder = real_dir(store.root / STAGING, create=True) / f"w{secrets.token_hex(8)}"
         self.folder.mkdir(mode=0o777)
         self._lock = open_lock(self.folder / LOCK)
