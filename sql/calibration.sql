@@ -24,6 +24,7 @@
 -- output evaluated_rows: n, evaluated rows of the whole period x version x segment
 -- output ece: sum over bins of rows/n * |gap| (Guo et al. 2017 top-label form)
 -- output mce: max over non-empty bins of |gap|
+-- show: period, version_col, segment_cols, bin, rows, mean_confidence, accuracy, gap, ece, mce
 -- example: dbmetrics run calibration --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set grain=month --set bins=10
 WITH
 state AS (

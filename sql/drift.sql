@@ -47,6 +47,7 @@
 -- note: chance levels: two samples of sizes n and m (n_eff = nm/(n+m)) from one distribution over D bins give 8 n_eff JS and n_eff PSI of about chi-square(D - 1); a divergence is flagged only above max(threshold, ((D - 1) + z sqrt(2 (D - 1))) / (8 n_eff)), resp. / n_eff for PSI. D = K classes or bins; n = scored rows (labelled rows for label_js). For mean predicted probabilities this chance level is conservative.
 -- note: chance ECE (a heuristic): the expected ECE of a perfectly calibrated model with the same bin counts and accuracies, sqrt(2/pi) sum_b sqrt(n_b acc_b (1 - acc_b)) / n; ECE is biased upward by about this much, so small cells differ by chance.
 -- note: the cross-entropy test treats cell and reference as independent samples and pools their variance (under "no change" they share it; this keeps the cell's mean and its standard error from moving together, which a skewed loss otherwise turns into extra false alarms). The default z = 4 lets about 6 in 100,000 clean cells pass by chance (two-sided normal tail), so a weekly table of hundreds of cells stays quiet; z = 3 (0.3%) is more sensitive and noisier.
+-- show: period, version_col, segment_cols, flagged, flag_reasons, prediction_js, confidence_psi, label_js, cross_entropy_z, ece_delta, cross_entropy_delta, rows, reference
 -- example: dbmetrics run drift --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set segment_cols=region --set ref_start=2026-01-05 --set ref_end=2026-02-01
 WITH
 state AS (

@@ -24,6 +24,7 @@
 -- output at_grid_edge: best_temperature is the smallest or largest tried: widen the grid
 -- note: temperature scaling (Guo et al. 2017) divides the logits by one number t, so the predicted class and the accuracy do not change; for probability logs the logits are log p. The fit is in-sample: the gain is what recalibration could win at most on these rows; fit t on one period and check it on the next before relying on it.
 -- note: cost: one cross-entropy per row and temperature (steps + 1 per row), on logs only (a partials store keeps sums, not rows).
+-- show: period, version_col, segment_cols, cross_entropy, best_temperature, recalibrated_cross_entropy, recalibration_gain, at_grid_edge, evaluated_rows
 -- example: dbmetrics run recalibration --set logs=demo_parquet/logs --set labels=demo_parquet/labels/labels.parquet --set id_col=prediction_id --set grain=month
 WITH
 grid AS (

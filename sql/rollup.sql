@@ -31,6 +31,7 @@
 -- output bad_labels: scored rows with a label outside [0, K), a class name not in classes, or conflicting late labels
 -- output infinite_loss_rows: scored, validly labelled rows whose true class has probability 0 (counted, never averaged in)
 -- note: rows = missing_scores + invalid_scores + scored rows; scored rows = unlabelled + bad_labels + infinite_loss_rows + evaluated_rows.
+-- show: period, version_col, segment_cols, rows, label_coverage, cross_entropy, cross_entropy_se, accuracy, ece, brier, mean_entropy, mean_confidence, evaluated_rows, missing_scores, invalid_scores, bad_labels, infinite_loss_rows
 -- example: dbmetrics run rollup --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set segment_cols=region --set grain=month
 WITH
 state AS (

@@ -15,9 +15,25 @@
 -- param bins (integer(1..1000), default 15): equal-width confidence bins, bin m holds m/B < c <= (m+1)/B (0 in bin 0)
 -- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column roles must cover version_col and segment_cols
 -- output period: first day of the period
--- output rows: then every other rollup column, as documented in the rollup query
+-- output rows: as in rollup
+-- output labelled_rows: as in rollup
+-- output label_coverage: as in rollup
+-- output evaluated_rows: as in rollup
+-- output cross_entropy: as in rollup
+-- output cross_entropy_se: as in rollup
+-- output perplexity: as in rollup
+-- output accuracy: as in rollup
+-- output brier: as in rollup
+-- output ece: as in rollup
+-- output mean_confidence: as in rollup
+-- output mean_entropy: as in rollup
+-- output missing_scores: as in rollup
+-- output invalid_scores: as in rollup
+-- output bad_labels: as in rollup
+-- output infinite_loss_rows: as in rollup
 -- note: after the rollup columns come the business table's other columns, NULL for segments it lacks.
 -- note: a segment key that appears in more than one business row is an error; the result may not repeat a column name.
+-- show: period, version_col, segment_cols, rows, cross_entropy, accuracy, ece
 -- example: dbmetrics run segments --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set segment_cols=region --set business=demo_parquet/regions.csv --set grain=month
 WITH
 rollup AS (

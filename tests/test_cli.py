@@ -37,9 +37,9 @@ def test_sql_prints_an_aligned_table_with_the_functions_registered(invoke):
     result = invoke("sql", "SELECT 'a' AS name, cross_entropy([0.0, 0.0], 1) AS loss, NULL AS gap")
     assert result.exit_code == 0, result.output
     assert result.stdout.splitlines() == [
-        "name      loss  gap",
-        "----  --------  ----",
-        "a     0.693147  NULL",
+        "name    loss  gap",
+        "----  ------  ----",
+        "a     0.6931  NULL",
         "(1 row)",
     ]
 
@@ -127,10 +127,10 @@ def test_every_format_writes_the_same_rows(invoke, tmp_path):
     assert (tmp_path / "out.txt").read_text().endswith("(3 rows)\n")
 
 
-def test_json_has_null_for_nan_and_inf_and_iso_dates(invoke):
+def test_json_writes_nan_and_inf_as_strings_apart_from_null_and_dates_iso(invoke):
     result = invoke(
         "sql",
-        "SELECT 'nan'::DOUBLE AS a, '-inf'::DOUBLE AS b, [1.0, 'inf'::DOUBLE] AS c, "
+        "SELECT 'nan'::DOUBLE AS a, '-inf'::DOUBLE AS b, [1.0, 'inf'::DOUBLE, NULL] AS c, "
         "DATE '2026-01-05' AS d, TIMESTAMP '2026-01-05 10:30:00' AS ts, "
         "12.50::DECIMAL(9,2) AS money, sum(range) AS big FROM range(4)",
         "-f",
@@ -138,9 +138,9 @@ def test_json_has_null_for_nan_and_inf_and_iso_dates(invoke):
     )
     assert json.loads(result.stdout) == [
         {
-            "a": None,
-            "b": None,
-            "c": [1.0, None],
+            "a": "NaN",
+            "b": "-Infinity",
+            "c": [1.0, "Infinity", None],
             "d": "2026-01-05",
             "ts": "2026-01-05T10:30:00",
             "money": 12.5,

@@ -1,8 +1,10 @@
 """Result formats and atomic file writing.
 
-Formats: ``table`` (aligned text), ``csv`` (pyarrow.csv), ``json`` and ``parquet``.
-JSON is one array of records: NaN and +/-inf become ``null`` (JSON has no such numbers),
-dates and times ISO 8601 strings, decimals numbers, binary hex strings.
+Formats: ``table`` (aligned text), ``markdown``, ``csv`` (pyarrow.csv), ``json`` and ``parquet``.
+JSON is one array of records. JSON has no NaN or infinity, so they are written as the strings
+``"NaN"``, ``"Infinity"`` and ``"-Infinity"`` (the spelling JavaScript's ``Number()`` and
+Python's ``float()`` read back), distinct from ``null`` (SQL NULL); dates and times are ISO 8601
+strings, decimals numbers, binary hex strings.
 """
 
 from __future__ import annotations
@@ -20,12 +22,13 @@ from typing import BinaryIO
 
 import pyarrow as pa
 
-from dbmetrics.cli.textable import render
+from dbmetrics.cli.textable import markdown, render
 from dbmetrics.errors import DbmetricsError
 
-FORMATS = ("table", "csv", "json", "parquet")
+FORMATS = ("table", "markdown", "csv", "json", "parquet")
 SUFFIXES = {
     ".txt": "table",
+    ".md": "markdown",
     ".csv": "csv",
     ".json": "json",
     ".parquet": "parquet",
@@ -101,6 +104,10 @@ def _table(table: pa.Table, out: BinaryIO) -> None:
     out.write(render(table).encode())
 
 
+def _markdown(table: pa.Table, out: BinaryIO) -> None:
+    out.write(markdown(table).encode())
+
+
 def _csv(table: pa.Table, out: BinaryIO) -> None:
     import pyarrow.csv as pcsv
 
@@ -125,9 +132,11 @@ def _json(table: pa.Table, out: BinaryIO) -> None:
 
 
 def _plain(value):
-    """Replace non-finite floats with None, recursively."""
+    """Replace non-finite floats with "NaN", "Infinity" or "-Infinity", recursively."""
     if isinstance(value, float):
-        return value if math.isfinite(value) else None
+        if math.isnan(value):
+            return "NaN"
+        return value if math.isfinite(value) else ("Infinity" if value > 0 else "-Infinity")
     if isinstance(value, dict):
         return {k: _plain(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
@@ -147,4 +156,4 @@ def _default(value):
     return str(value)
 
 
-_WRITERS = {"table": _table, "csv": _csv, "json": _json, "parquet": _parquet}
+_WRITERS = {"table": _table, "markdown": _markdown, "csv": _csv, "json": _json, "parquet": _parquet}

@@ -5,7 +5,7 @@ from __future__ import annotations
 import click
 
 from dbmetrics.cli.params import merge, parse_settings
-from dbmetrics.cli.results import emit, output_options
+from dbmetrics.cli.results import emit, key_columns, output_options
 
 
 @click.command("run")
@@ -20,7 +20,7 @@ from dbmetrics.cli.results import emit, output_options
 )
 @output_options
 @click.pass_context
-def command(ctx, name, settings, fmt, output, flag_column):
+def command(ctx, name, settings, fmt, output, flag_column, pick, all_columns):
     """Run the saved query NAME and print or write its result.
 
     Parameters come from --set, then the project file ([queries.NAME], then
@@ -42,4 +42,5 @@ def command(ctx, name, settings, fmt, output, flag_column):
         sql, bound = queries.render_query(session.connect(), name, params, query_dirs=dirs)
         session.info(f"-- {info.path}\n{sql}\n-- bound: {bound}")
     table = session.execute(lambda con: queries.run_query(con, name, params, query_dirs=dirs))
-    ctx.exit(emit(session, table, fmt, output, flag_column))
+    key = key_columns(info, params)
+    ctx.exit(emit(session, table, fmt, output, flag_column, pick, all_columns, key))

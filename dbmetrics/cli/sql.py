@@ -15,7 +15,7 @@ from dbmetrics.cli.results import emit, output_options
 @click.option("--file", "sql_file", metavar="PATH", help="Read the SQL from this file.")
 @output_options
 @click.pass_context
-def command(ctx, query, sql_file, fmt, output, flag_column):
+def command(ctx, query, sql_file, fmt, output, flag_column, pick, all_columns):
     """Run SQL (an argument, --file PATH, or - for stdin) and print or write the last result.
 
     \b
@@ -34,7 +34,7 @@ def command(ctx, query, sql_file, fmt, output, flag_column):
     session = ctx.obj
     session.info(query)
     table = session.execute(lambda con: _fetch(con, query))
-    ctx.exit(emit(session, table, fmt, output, flag_column))
+    ctx.exit(emit(session, table, fmt, output, flag_column, pick, all_columns))
 
 
 def _fetch(con, query: str) -> pa.Table:

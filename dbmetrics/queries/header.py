@@ -9,6 +9,8 @@ A saved query is one .sql file that opens with a header of `--` lines:
     -- param classes (text): optional: no default, unset unless given
     -- output rows: rows in the group
     -- note: free text (conventions, formulas); several allowed
+    -- show: period, version_col, segment_cols, rows (the key columns a terminal table shows
+    --     first, most important first; a column(s) parameter stands for the columns it names)
     -- example: dbmetrics run rollup --set logs=logs/
     --     (a line indented by three or more spaces continues the entry above)
 
@@ -47,7 +49,7 @@ COLUMN_MAP = (
 )
 
 PARAM = re.compile(r"param\s+([a-z_][a-z0-9_]*)\s*\(([^()]*(?:\([^()]*\))?[^()]*)\)\s*:\s*(.+)")
-KEYED = re.compile(r"(name|summary|example|note|output\s+[A-Za-z_][A-Za-z0-9_]*)\s*:\s*(.*)")
+KEYED = re.compile(r"(name|summary|example|note|show|output\s+[A-Za-z_][A-Za-z0-9_]*)\s*:\s*(.*)")
 TYPE = re.compile(r"([a-z]+)(?:\((.*)\))?")
 CHOICES = re.compile(r"[a-z0-9_]+(?:\|[a-z0-9_]+)*")
 SOURCES = re.compile(r"[a-z_][a-z0-9_]*(?:\s*,\s*[a-z_][a-z0-9_]*)*")
@@ -97,6 +99,7 @@ class QueryInfo:
     outputs: tuple = ()  # (column, meaning) pairs
     notes: tuple = ()
     body: str = field(default="", repr=False)
+    show: tuple = ()  # key columns for terminal tables: output names or column(s) parameters
 
     def param(self, name: str) -> Param:
         return next(p for p in self.params if p.name == name)
@@ -149,8 +152,10 @@ def parse_query(text: str, path: Path, origin: str) -> QueryInfo:
         tuple(outputs),
         tuple(notes),
         body,
+        tuple(c.strip() for c in fields.get("show", "").split(",") if c.strip()),
     )
     check_body(info)
+    check_show(info)
     return info
 
 
@@ -173,7 +178,7 @@ def header_entries(header: list, path: Path) -> list:
         if not match:
             raise DbmetricsError(
                 f"{path}: header line `{line}` is not one of name:, summary:, "
-                "param NAME (TYPE...): , output NAME:, note:, example:"
+                "param NAME (TYPE...): , output NAME:, note:, show:, example:"
             )
         entries.append((" ".join(match.group(1).split()), match.group(2).strip()))
     return entries
@@ -234,6 +239,19 @@ def parse_param(text: str, path: Path) -> Param:
     return Param(
         name, type_text, kind, meaning.strip(), default, required, choices, sources, low, high
     )
+
+
+def check_show(info: QueryInfo) -> None:
+    """Every `-- show:` name is a declared output column or a column(s) parameter."""
+    known = {c for c, _ in info.outputs} | {
+        p.name for p in info.params if p.kind in ("column", "columns")
+    }
+    unknown = [c for c in info.show if c not in known]
+    if unknown:
+        raise DbmetricsError(
+            f"{info.path}: `-- show:` names {', '.join(unknown)}, which is neither an "
+            "`-- output` column nor a column parameter"
+        )
 
 
 def check_body(info: QueryInfo) -> None:
