@@ -245,7 +245,8 @@ def test_rows_are_kept_by_value_and_period_range():
 
 
 def drift_like(versions=("v1",), regions=("alpine", "north")):
-    """Six weekly periods per version x region; the first two in the reference, one flagged row."""
+    """Six weekly periods per version x region; the first two in the reference; alpine's last
+    week flagged for prediction_js, north's for confidence_psi only."""
     rows = []
     for version in versions:
         for region in regions:
@@ -259,7 +260,13 @@ def drift_like(versions=("v1",), regions=("alpine", "north")):
                         "prediction_js": 0.001 * (week + 1),
                         "cross_entropy": 0.7,
                         "cross_entropy_se": 0.01 * (week + 1),
-                        "flagged": region == "alpine" and week == 5,
+                        "flagged": region in ("alpine", "north") and week == 5,
+                        "flag_reasons": {
+                            "alpine": "cross_entropy +0.1 (z = 5.0); prediction_js 0.0060",
+                            "north": "confidence_psi 0.300",
+                        }.get(region)
+                        if week == 5
+                        else None,
                     }
                 )
     return pa.Table.from_pylist(rows)
@@ -281,7 +288,7 @@ def test_reliability_legend_gives_each_versions_pooled_ece_and_rows():
 
 
 @needs_matplotlib
-def test_trend_rings_exactly_the_flagged_rows_and_shades_the_reference():
+def test_trend_rings_exactly_the_rows_flagged_for_the_measure_and_shades_the_reference():
     from dbmetrics.plots.trend import FLAGGED, REFERENCE
 
     figure = plots.trend_figure(
@@ -322,3 +329,96 @@ def test_png_bytes_have_the_fixed_size_whatever_the_content(tmp_path):
     ):
         (tmp_path / "f.png").write_bytes(plots.png_bytes(figure))
         assert png_size(tmp_path / "f.png") == (plots.WIDTH, plots.HEIGHT) == SIZE
+
+
+@needs_matplotlib
+def test_trend_draws_the_measures_own_threshold_from_the_parameters():
+    from dbmetrics.plots.trend import FLAGGED
+
+    figure = plots.trend_figure(
+        drift_like(),
+        "prediction_js",
+        "region",
+        ("model_version", "region"),
+        params={"js_threshold": "0.004", "psi_threshold": "0.25"},
+    )
+    ax = figure.axes[0]
+    dashed = [
+        line.get_ydata()[0]
+        for line in ax.get_lines()
+        if line.get_label().startswith("_")
+        and len(set(line.get_ydata())) == 1
+        and line.get_linestyle() == "--"
+    ]
+    assert dashed == [0.004]
+    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert "threshold js_threshold = 0.004" in legend and FLAGGED in legend
+    psi = drift_like().append_column("confidence_psi", pa.array([0.1] * 12))
+    figure = plots.trend_figure(
+        psi,
+        "confidence_psi",
+        "region",
+        ("model_version", "region"),
+        params={"psi_threshold": "0.25"},
+    )
+    [ring] = [c for c in figure.axes[0].collections if c.get_label() == FLAGGED]
+    assert len(ring.get_offsets()) == 1  # north's week 6, flagged for confidence_psi only
+    zs = drift_like().append_column("cross_entropy_z", pa.array([1.0] * 12))
+    figure = plots.trend_figure(
+        zs, "cross_entropy_z", "region", ("model_version", "region"), params={"z": "4"}
+    )
+    levels = sorted(
+        line.get_ydata()[0]
+        for line in figure.axes[0].get_lines()
+        if line.get_linestyle() == "--" and len(line.get_ydata()) == 2
+    )
+    assert levels == [-4.0, 4.0]
+
+
+@needs_matplotlib
+def test_titles_and_axes_name_the_grain():
+    monthly = drift_like(regions=("north",))
+    figure = plots.trend_figure(monthly, "cross_entropy", "model_version", grain="month")
+    assert figure.axes[0].get_title().startswith("Cross-entropy (nats) per month, by model_version")
+    assert figure.axes[0].get_xlabel() == "month"
+    weekly = plots.trend_figure(monthly, "cross_entropy", "model_version")
+    assert weekly.axes[0].get_xlabel() == "week (starting Monday)"
+    one = calibration_rows([(dt.date(2026, 3, 1), "v1", 5, 1, 0.5, 0.0)])
+    for grain, words in (
+        ("month", "month 2026-03,"),
+        ("week", "week of 2026-03-01,"),
+        ("day", "day 2026-03-01,"),
+    ):
+        title = plots.reliability_figure(one, "model_version", grain=grain).axes[0].get_title()
+        assert words in title and " to " not in title
+
+
+def test_confidence_gap_pools_the_bins_of_each_period_by_their_rows():
+    table = calibration_rows(
+        [
+            (dt.date(2026, 1, 5), "v1", 5, 3, 0.70, 1 / 3),  # 3 rows: confidence 2.1, correct 1
+            (dt.date(2026, 1, 5), "v1", 9, 1, 0.95, 1.0),  # 1 row: confidence 0.95, correct 1
+            (dt.date(2026, 1, 12), "v1", 5, 2, 0.60, 0.5),
+        ]
+    )
+    gaps = plots.confidence_gap(table, ("model_version",))
+    assert gaps["period"].to_pylist() == [dt.date(2026, 1, 5), dt.date(2026, 1, 12)]
+    assert gaps["evaluated_rows"].to_pylist() == [4, 2]
+    assert gaps["confidence_gap"].to_pylist() == pytest.approx([(2.1 + 0.95 - 2) / 4, 0.1])
+
+
+@needs_matplotlib
+def test_heatmap_crosses_cells_flagged_for_the_measure_and_dots_the_others():
+    from dbmetrics.plots.heatmap import CROSS, DOT
+
+    figure = plots.heatmap_figure(drift_like(), "prediction_js", ("model_version", "region"))
+    ax = figure.axes[0]
+    marks = {
+        c.get_label(): c.get_offsets().tolist()
+        for c in ax.collections
+        if c.get_label() in (CROSS, DOT)
+    }
+    assert marks == {CROSS: [[5, 0]], DOT: [[5, 1]]}  # column = week 6, row 0 alpine, 1 north
+    assert [t.get_text() for t in ax.get_yticklabels()] == ["v1 · alpine", "v1 · north"]
+    assert ax.get_xlabel() == "week (starting Monday)"
+    assert figure.axes[1].get_ylabel() == "prediction JS divergence (nats)"

@@ -8,7 +8,7 @@ from __future__ import annotations
 import click
 import duckdb
 
-from dbmetrics.cli import check, demo, partials, plot, project, queries, run, sql
+from dbmetrics.cli import check, demo, partials, plot, project, queries, report, run, sql
 from dbmetrics.cli.messages import one_line
 from dbmetrics.cli.session import Session
 from dbmetrics.errors import DbmetricsError
@@ -73,5 +73,5 @@ def cli(ctx, project_file, database, memory_limit, threads, quiet, verbose):
     ctx.call_on_close(session.close)
 
 
-for _module in (run, queries, sql, demo, plot, check, partials):
+for _module in (run, queries, sql, demo, plot, report, check, partials):
     cli.add_command(_module.command)

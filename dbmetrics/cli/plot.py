@@ -1,4 +1,4 @@
-"""``dbmetrics plot reliability|trend``: run a saved query and draw its result as a PNG file.
+"""``dbmetrics plot reliability|trend|gap|coverage``: run a saved query and draw its result as a PNG file.
 
 The drawing lives in ``dbmetrics.plots``; this module gathers parameters the way ``run`` does
 (--set, then the project file, then the query's defaults), runs the query and writes the PNG atomically.
@@ -109,8 +109,8 @@ def reliability(session, settings, by, only, start, end, title, output):
     """
     from dbmetrics import plots
 
-    table, by, keys, _ = _query(session, "calibration", settings, by, only, start, end)
-    _write(session, plots.reliability_figure(table, by, keys, title), output)
+    table, by, keys, resolved = _query(session, "calibration", settings, by, only, start, end)
+    _write(session, plots.reliability_figure(table, by, keys, title, resolved["grain"]), output)
 
 
 @command.command("trend")
@@ -137,7 +137,8 @@ def trend(session, name, metric, settings, by, only, start, end, title, output):
     """A metric over time, one line per version or segment value.
 
     Cross-entropy gets 95% error bars from cross_entropy_se (rollup). With --query drift,
-    flagged rows are ringed and the reference window is shaded.
+    the reference window is shaded, a point is ringed only when the drawn measure's own test
+    flagged it, and the test's fixed threshold (e.g. js_threshold) is drawn dashed.
 
     \b
     Example:
@@ -147,12 +148,59 @@ def trend(session, name, metric, settings, by, only, start, end, title, output):
     """
     from dbmetrics import plots
 
-    table, by, keys, grain = _query(session, name, settings, by, only, start, end)
-    _write(session, plots.trend_figure(table, metric, by, keys, grain, title), output)
+    table, by, keys, resolved = _query(session, name, settings, by, only, start, end)
+    figure = plots.trend_figure(table, metric, by, keys, resolved["grain"], title, resolved)
+    _write(session, figure, output)
+
+
+@command.command("gap")
+@_plot_options
+@click.pass_obj
+def gap(session, settings, by, only, start, end, title, output):
+    """Calibration gap over time: mean confidence minus accuracy per period (calibration query).
+
+    Above 0 the model is over-confident, below 0 under-confident; the gap pools the period's
+    confidence bins (sums, not averages).
+
+    \b
+    Example:
+      dbmetrics plot gap --set logs=demo_parquet/logs --set id_col=prediction_id \\
+          --set labels=demo_parquet/labels/labels.parquet --output gap.png
+    """
+    from dbmetrics import plots
+
+    table, by, keys, resolved = _query(session, "calibration", settings, by, only, start, end)
+    gaps = plots.confidence_gap(table, tuple(k for k in keys if k in table.column_names))
+    figure = plots.trend_figure(gaps, "confidence_gap", by, keys, resolved["grain"], title)
+    figure.axes[0].axhline(0, color="#777777", linewidth=0.8, zorder=1)
+    _write(session, figure, output)
+
+
+@command.command("coverage")
+@_plot_options
+@click.pass_obj
+def coverage(session, settings, by, only, start, end, title, output):
+    """Label coverage over time: the share of each period's rows whose label has arrived.
+
+    Recent periods are low while labels are still on their way; a drop in older periods
+    means labels stopped arriving.
+
+    \b
+    Example:
+      dbmetrics plot coverage --set logs=demo_parquet/logs --set id_col=prediction_id \\
+          --set labels=demo_parquet/labels/labels.parquet --output coverage.png
+    """
+    from dbmetrics import plots
+
+    table, by, keys, resolved = _query(session, "rollup", settings, by, only, start, end)
+    figure = plots.trend_figure(table, "label_coverage", by, keys, resolved["grain"], title)
+    figure.axes[0].set_ylim(0, 1.05)
+    _write(session, figure, output)
 
 
 def _query(session, name, settings, by, only, start, end):
-    """Run query ``name`` with the merged parameters; (kept rows, by column, group columns, grain)."""
+    """Run query ``name`` with the merged parameters; (kept rows, by column, group columns,
+    every parameter's value with the defaults)."""
     from dbmetrics import plots, queries
 
     plots.require_matplotlib()
@@ -172,7 +220,7 @@ def _query(session, name, settings, by, only, start, end):
         params["segment_cols"] = ",".join(segments)
     table = session.execute(lambda con: queries.run_query(con, name, params, query_dirs=dirs))
     table = plots.keep_rows(table, equal, start and start.date(), end and end.date())
-    return table, by, (version, *segments), resolved["grain"]
+    return table, by, (version, *segments), resolved
 
 
 def _write(session, figure, output: str) -> None:

@@ -2,6 +2,8 @@
 
     reliability_figure(calibration, by) -> Figure   accuracy vs confidence per group, pooled over periods
     trend_figure(result, metric, by, keys) -> Figure   a metric over ``period``, one line per group
+    heatmap_figure(drift, measure, rows) -> Figure   a drift measure per period x segment, flags marked
+    confidence_gap(calibration, keys) -> Table       mean confidence minus accuracy per period
     png_bytes(figure) -> bytes                       WIDTH x HEIGHT pixels
     pool_bins(calibration, by) -> list[Pooled]       calibration bins summed over periods (no matplotlib)
     keep_rows(table, equal, start, end) -> Table     rows with COLUMN = VALUE and period in [start, end]
@@ -10,7 +12,8 @@ Importing this package does not import matplotlib; drawing without it raises
 ``DbmetricsError("plotting needs matplotlib: pip install 'dbmetrics[plot]'")``.
 """
 
-from .pooling import Pooled, pool_bins
+from .heatmap import heatmap_figure
+from .pooling import Pooled, confidence_gap, pool_bins
 from .reliability import reliability_figure
 from .rows import keep_rows
 from .style import HEIGHT, WIDTH, png_bytes, require_matplotlib
@@ -20,6 +23,8 @@ __all__ = [
     "HEIGHT",
     "WIDTH",
     "Pooled",
+    "confidence_gap",
+    "heatmap_figure",
     "keep_rows",
     "png_bytes",
     "pool_bins",

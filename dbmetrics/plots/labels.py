@@ -16,6 +16,7 @@ LABELS = {
     "mean_confidence": "mean top-label confidence (probability)",
     "mean_entropy": "mean predictive entropy (nats)",
     "label_coverage": "label coverage (share of rows)",
+    "confidence_gap": "mean confidence minus accuracy (probability)",
     "prediction_kl": "prediction KL divergence (nats)",
     "prediction_js": "prediction JS divergence (nats)",
     "label_js": "label JS divergence (nats)",
@@ -26,3 +27,16 @@ LABELS = {
 def metric_label(column: str) -> str:
     """``cross_entropy`` -> ``cross-entropy (nats)``; counts and unknown columns by name."""
     return LABELS.get(column, column.replace("_", " "))
+
+
+#: how a period of each grain is named on an axis
+PERIODS = {
+    "day": "day",
+    "week": "week (starting Monday)",
+    "month": "month",
+}
+
+
+def period_label(grain: str) -> str:
+    """The x-axis label of a period column at ``grain``: ``week (starting Monday)``."""
+    return PERIODS.get(grain, "period")

@@ -68,3 +68,33 @@ def pool_bins(calibration: pa.Table, by: str) -> list[Pooled]:
             )
         )
     return pooled
+
+
+def confidence_gap(calibration: pa.Table, keys: tuple[str, ...]) -> pa.Table:
+    """Per period and value of ``keys``: mean confidence minus accuracy over its evaluated
+    rows (positive: over-confident), from the calibration query's bins.
+
+    confidence_gap = (sum_b rows_b * mean_confidence_b - sum_b rows_b * accuracy_b) / sum_b rows_b,
+    with evaluated_rows = sum_b rows_b.
+    """
+    columns = ["period", *keys]
+    groups = list(zip(*(calibration[c].to_pylist() for c in columns)))
+    rows = calibration["rows"].to_numpy(zero_copy_only=False).astype(float)
+    excess = rows * (
+        calibration["mean_confidence"].to_numpy(zero_copy_only=False)
+        - calibration["accuracy"].to_numpy(zero_copy_only=False)
+    )
+    distinct = sorted(set(groups), key=lambda g: tuple(map(text, g)))
+    index = {g: i for i, g in enumerate(distinct)}
+    at = np.array([index[g] for g in groups], dtype=np.int64)
+    total = np.bincount(at, weights=rows, minlength=len(distinct))
+    gap = np.bincount(at, weights=excess, minlength=len(distinct)) / total
+    out = {c: [g[j] for g in distinct] for j, c in enumerate(columns)}
+    out["evaluated_rows"] = total.astype(np.int64)
+    out["confidence_gap"] = gap
+    schema = [calibration.schema.field(c) for c in columns]
+    return pa.table(
+        [pa.array(out[f.name], f.type) for f in schema]
+        + [pa.array(out["evaluated_rows"]), pa.array(out["confidence_gap"])],
+        names=[*columns, "evaluated_rows", "confidence_gap"],
+    )

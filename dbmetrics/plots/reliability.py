@@ -12,7 +12,11 @@ from dbmetrics.plots.style import GREY, HATCHES, new_figure, series_style, tidy
 
 
 def reliability_figure(
-    calibration: pa.Table, by: str, keys: tuple[str, ...] = (), title: str | None = None
+    calibration: pa.Table,
+    by: str,
+    keys: tuple[str, ...] = (),
+    title: str | None = None,
+    grain: str = "week",
 ):
     """A Figure from the ``calibration`` query's result: one curve per value of ``by``, its bins
     pooled over every period and over the other group columns ``keys`` (version, segments)."""
@@ -58,15 +62,26 @@ def reliability_figure(
     counts.set_ylim(0, None)
     for ax in (curve, counts):
         tidy(ax)
-    curve.set_title(title or _title(calibration, by, keys), fontsize=10)
+    curve.set_title(title or _title(calibration, by, keys, grain), fontsize=10)
     return figure
 
 
-def _title(calibration: pa.Table, by: str, keys: tuple[str, ...]) -> str:
-    """``Reliability per model_version, periods 2026-01-05 to 2026-06-29 pooled, 15 bins (region alpine)``."""
+def _title(calibration: pa.Table, by: str, keys: tuple[str, ...], grain: str = "week") -> str:
+    """``Reliability per model_version, weeks 2026-01-05 to 2026-06-29 pooled, 15 bins (region
+    alpine)``; one period reads ``week of 2026-03-02``, ``day 2026-03-02``, ``month 2026-03``."""
     periods = calibration["period"].to_pylist()
     pooled, fixed = split_keys(calibration, keys, by)
     bins = round(1 / (calibration["bin_upper"][0].as_py() - calibration["bin_lower"][0].as_py()))
-    over = f"periods {min(periods)} to {max(periods)}" + "".join(f", every {k}" for k in pooled)
+    every = "".join(f", every {k}" for k in pooled)
     only = f" ({', '.join(f'{k} {v}' for k, v in fixed.items())})" if fixed else ""
+    if min(periods) == max(periods):
+        return f"Reliability per {by}, {one_period(min(periods), grain)}{every}, {bins} bins{only}"
+    over = f"{grain}s {min(periods)} to {max(periods)}" + every
     return f"Reliability per {by}, {over} pooled, {bins} bins{only}"
+
+
+def one_period(first_day, grain: str) -> str:
+    """``week of 2026-03-02``, ``day 2026-03-02`` or ``month 2026-03``."""
+    if grain == "month":
+        return f"month {first_day:%Y-%m}"
+    return f"week of {first_day}" if grain == "week" else f"{grain} {first_day}"

@@ -1,5 +1,6 @@
 """A metric over ``period``: one line per group, error bars from ``METRIC_se`` when the result
-has it (95%: +-1.96 standard errors), flagged rows ringed and reference periods shaded (drift)."""
+has it (95%: +-1.96 standard errors); for drift, the reference periods shaded, a point ringed
+only when the drawn measure's own test flagged it, and that test's fixed threshold drawn."""
 
 from __future__ import annotations
 
@@ -7,13 +8,14 @@ import numpy as np
 import pyarrow as pa
 
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.plots.labels import metric_label
+from dbmetrics.plots.flags import flagged_for, threshold
+from dbmetrics.plots.labels import metric_label, period_label
 from dbmetrics.plots.rows import split_keys, text
 from dbmetrics.plots.style import COLOURS, LINESTYLES, MARKERS, new_figure, tidy
 
 Z95 = 1.96
 REFERENCE = "reference window"
-FLAGGED = "flagged (see flag_reasons)"
+FLAGGED = "flagged for this measure"
 BARS = f"bars: 95% interval (±{Z95} SE)"
 INSIDE_LEGEND = 4  # at most this many lines: legend inside the axes, else beside them
 
@@ -25,8 +27,12 @@ def trend_figure(
     keys: tuple[str, ...] = (),
     grain: str = "week",
     title: str | None = None,
+    params: dict | None = None,
 ):
     """A Figure of ``metric`` over ``period``, one line per value of ``by``.
+
+    ``params``: the query's parameters, for the threshold of a drift measure (e.g.
+    ``js_threshold`` for ``prediction_js``).
 
     ``keys``: the result's other group columns (version, segments); where they take more than
     one value, each combination is its own line, told apart by line style. Colour and marker
@@ -67,18 +73,19 @@ def trend_figure(
             ax.plot(x, y, **style)
         else:
             ax.errorbar(x, y, yerr=errors[at][order], capsize=2, elinewidth=0.8, **style)
-    if "flagged" in result.column_names and _ring_flagged(
-        ax, periods, values, _bools(result["flagged"])
-    ):
+    if _ring_flagged(ax, periods, values, np.array(flagged_for(result, metric), dtype=bool)):
         notes.append(FLAGGED)
+    limit = threshold(metric, params or {}) if "flag_reasons" in result.column_names else None
+    if limit is not None:
+        notes.append(_draw_threshold(ax, *limit))
     if errors is not None:
         ax.plot([], [], " ", label=BARS)
         notes.append(BARS)
 
-    ax.set(xlabel=f"period (first day of the {grain})", ylabel=metric_label(metric))
+    ax.set(xlabel=period_label(grain), ylabel=metric_label(metric))
     _date_axis(ax)
     tidy(ax)
-    ax.set_title(title or _title(metric, by, others, fixed), fontsize=10)
+    ax.set_title(title or _title(metric, by, others, fixed, grain), fontsize=10)
     _legend(figure, ax, ", ".join([by, *others]), notes, len(lines))
     return figure
 
@@ -154,6 +161,15 @@ def _ring_flagged(ax, periods: np.ndarray, values: np.ndarray, flagged: np.ndarr
     return True
 
 
+def _draw_threshold(ax, name: str, value: float, both: bool) -> str:
+    """A dashed line at the fixed limit (and at minus it); the legend text."""
+    label = f"threshold {name} = {value:g}" + (" (and its negative)" if both else "")
+    for level in (value, -value) if both else (value,):
+        ax.axhline(level, color="#555555", linestyle=(0, (5, 3)), linewidth=1, zorder=1)
+    ax.plot([], [], color="#555555", linestyle=(0, (5, 3)), linewidth=1, label=label)
+    return label
+
+
 def _legend(figure, ax, title: str, notes: list[str], lines: int) -> None:
     """Lines first, then the notes; inside the axes for a few lines, beside them for more."""
     handles, labels = ax.get_legend_handles_labels()
@@ -181,9 +197,11 @@ def _date_axis(ax) -> None:
     ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
 
 
-def _title(metric: str, by: str, others: list[str], fixed: dict[str, str]) -> str:
-    """``Cross-entropy (nats) per period, by region (model_version v2)``."""
+def _title(
+    metric: str, by: str, others: list[str], fixed: dict[str, str], grain: str = "week"
+) -> str:
+    """``Cross-entropy (nats) per week, by region (model_version v2)``."""
     label = metric_label(metric)
     split = f"{by} and {', '.join(others)}" if others else by
     only = f" ({', '.join(f'{k} {v}' for k, v in fixed.items())})" if fixed else ""
-    return f"{label[0].upper()}{label[1:]} per period, by {split}{only}"
+    return f"{label[0].upper()}{label[1:]} per {grain}, by {split}{only}"
