@@ -264,3 +264,14 @@ def test_module_entry_point_passes_its_options_to_generate(tmp_path, capsys):
         )
     )
     assert "labels:" in capsys.readouterr().out
+
+
+def test_every_parquet_file_says_the_data_is_invented(committed):
+    from dbmetrics.demo.scenario import MARK, RETAILER
+
+    assert RETAILER in MARK and MARK.startswith("Invented demo data")
+    parquet = [name for name in committed if name.endswith(".parquet")]
+    assert len(parquet) == len(MONTHS) + 1
+    for name in parquet:
+        metadata = pq.read_schema(COMMITTED / name).metadata
+        assert metadata[b"dbmetrics.demo"].decode() == MARK, name

@@ -57,7 +57,7 @@ def cli(ctx, project_file, database, memory_limit, threads, quiet, verbose):
 
     \b
     Example:
-      dbmetrics demo demo_parquet && dbmetrics queries
+      dbmetrics demo demo_try && dbmetrics queries
 
     \b
     Exit status: 0 ok; 1 error (one line on stderr); 2 bad command line;

@@ -1,4 +1,4 @@
-"""The invented demo scenario: Ridgeline Outfitters' return-reason classifier.
+"""The invented demo scenario: the return-reason classifier of Brindlemoss, a made-up retailer.
 
 Every number below is made up. One row of a ``*_MULT`` table multiplies the base
 class mix; the true class of a prediction is drawn from the normalised product.
@@ -6,6 +6,13 @@ Weeks are 1-based and start on the Monday given to ``generate``.
 """
 
 import numpy as np
+
+#: The invented retailer (a coined name, not a real shop) and the note every demo file carries.
+RETAILER = "Brindlemoss"
+MARK = (
+    f"Invented demo data: the returns desk of {RETAILER}, a made-up outdoor-gear retailer. "
+    "Drawn by dbmetrics.demo from a seeded generator; nothing comes from a real system."
+)
 
 CLASSES = ("damaged", "wrong_size", "arrived_late", "not_as_described", "changed_mind", "other")
 K = len(CLASSES)

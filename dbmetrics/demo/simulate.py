@@ -17,14 +17,16 @@ LOGS_SCHEMA = pa.schema(
         ("channel", pa.string()),
         ("customer_tier", pa.string()),
         ("logits", pa.list_(pa.float32())),
-    ]
+    ],
+    metadata={"dbmetrics.demo": sc.MARK},
 )
 LABELS_SCHEMA = pa.schema(
     [
         ("prediction_id", pa.string()),
         ("label", pa.int32()),
         ("labelled_at", pa.timestamp("us")),
-    ]
+    ],
+    metadata={"dbmetrics.demo": sc.MARK},
 )
 DAY_US = 86_400_000_000
 
