@@ -1,13 +1,15 @@
 -- name: segments
--- summary: The rollup beside a business segment table (revenue, customer tier, ...): one row per period x version x segment, the table's columns joined on the segment columns.
--- param business (source, required): business segment table: a Parquet or CSV file, or a table/view name, with one row per segment
+-- summary: The rollup beside a business table (revenue, customer tier, ...): one row per period x version x segment, the table's columns joined on the segment columns, and on the period when the table has one (weekly revenue per region).
+-- param business (source, required): business table: a Parquet or CSV file, or a table/view name, with one row per segment (or per period and segment, see business_period_col)
 -- param logs (source): prediction log: a Parquet file, glob or (hive-partitioned) folder, or a table/view name; required unless partials is set
 -- param time_col (column, default ts): prediction time, DATE or TIMESTAMP; its day is CAST(time AS DATE)
 -- param scores_col (column, default logits): the model's scores: a numeric list per row (one number for binary_* kinds)
 -- param scores_kind (choice(logits|probs|binary_logit|binary_prob), default logits): logits (softmax taken) or probabilities (checked, renormalised); binary_logit s -> [0, s], binary_prob p -> [1-p, p]
 -- param label_col (column, default label): true class: 0-based index, or a name listed in classes; NULL = not yet labelled; empty = no labels
 -- param version_col (column, default model_version): model version column
--- param segment_cols (columns(logs, business), required): comma-separated segment columns: the rollup groups by them and the business table is joined on them
+-- param segment_cols (columns, required): comma-separated segment columns of the log: the rollup groups by them and the business table is joined on them
+-- param business_segment_cols (columns(business), default same as segment_cols): the business table's key columns matching segment_cols, in the same order, when they are named differently (e.g. region_code for region); values are compared as text
+-- param business_period_col (column(business)): the business table's period column (DATE or TIMESTAMP); each value is truncated to grain, so any day of a period (a week's Monday or Sunday) joins that period; unset: one business row per segment serves every period
 -- param grain (choice(day|week|month), default week): period length; weeks start on Monday
 -- param labels (source): separate label table (path or table) joined on id_col; its label_col holds the labels
 -- param id_col (column): prediction id present in both logs and labels (needed with labels)
@@ -31,21 +33,34 @@
 -- output invalid_scores: as in rollup
 -- output bad_labels: as in rollup
 -- output infinite_loss_rows: as in rollup
--- note: after the rollup columns come the business table's other columns, NULL for segments it lacks.
--- note: a segment key that appears in more than one business row is an error; the result may not repeat a column name.
--- show: period, version_col, segment_cols, rows, cross_entropy, accuracy, ece
+-- output business_found: a business row was found for the cell (false: its business columns are NULL)
+-- note: after the rollup columns come the business table's other columns (its key columns left out), then business_found; `dbmetrics run` says how many cells found no business row.
+-- note: a key (segment, and period when business_period_col is set) that appears in more than one business row is an error; the result may not repeat a column name.
+-- show: period, version_col, segment_cols, rows, cross_entropy, accuracy, ece, business_found
 -- example: dbmetrics run segments --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set segment_cols=region --set business=demo_parquet/regions.csv --set grain=month
 WITH
 rollup AS (
     {{query:rollup}}
 ),
+-- The business table keyed by its segment values joined as text (unit separator between
+-- them) and by its period truncated to the grain (NULL when business_period_col is unset:
+-- the trailing commas let an unset column parameter render as nothing).
 business AS (
-    SELECT * FROM {{business}}
-    QUALIFY CASE WHEN count(*) OVER (PARTITION BY {{segment_cols}}) > 1
-                 THEN error('business: a segment appears in more than one row; give one row per segment')
+    SELECT concat_ws(chr(31), {{business_segment_cols}},) AS __segment_key,
+           CAST(date_trunc($grain, CAST(([{{business_period_col}}])[1] AS DATE)) AS DATE)
+               AS __period_key,
+           len([{{business_period_col}}]) > 0 AS __by_period,
+           * EXCLUDE ({{business_segment_cols}}, {{business_period_col}})
+    FROM {{business}}
+    QUALIFY CASE WHEN count(*) OVER (PARTITION BY __segment_key, __period_key) > 1
+                 THEN error('business: a segment (and period) appears in more than one row; give one row per key')
                  ELSE true END
 )
-SELECT rollup.*, business.* EXCLUDE ({{segment_cols}})
+SELECT rollup.*,
+       business.* EXCLUDE (__segment_key, __period_key, __by_period),
+       business.__segment_key IS NOT NULL AS business_found
 FROM rollup
-LEFT JOIN business USING ({{segment_cols}})
+LEFT JOIN business
+  ON business.__segment_key = concat_ws(chr(31), {{segment_cols}},)
+ AND (NOT business.__by_period OR business.__period_key = rollup.period)
 ORDER BY ALL

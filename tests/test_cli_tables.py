@@ -168,3 +168,29 @@ def test_a_user_query_declares_its_key_columns(tmp_path, monkeypatch):
     )
     result = CliRunner().invoke(cli, ["run", "three"])
     assert result.exit_code == 1 and "`-- show:` names nope" in result.stderr
+
+
+def test_segments_says_how_many_cells_found_no_business_row(tmp_path, monkeypatch):
+    monkeypatch.chdir(ROOT)
+    monkeypatch.setenv("DBMETRICS_PROJECT", str(PROJECT))
+    (tmp_path / "some.csv").write_text("region,margin_pct\nnorth,31.5\nsouth,28.0\n")
+    result = CliRunner().invoke(
+        cli,
+        [
+            "run",
+            "segments",
+            "--set",
+            "segment_cols=region",
+            "--set",
+            "grain=month",
+            "--set",
+            f"business={tmp_path / 'some.csv'}",
+            "-f",
+            "csv",
+        ],
+    )
+    assert result.exit_code == 0, result.output
+    rows = list(csv.DictReader(io.StringIO(result.stdout)))
+    missing = sum(r["business_found"] == "false" for r in rows)
+    assert missing == sum(r["region"] not in ("north", "south") for r in rows) > 0
+    assert f"{missing} of {len(rows)} cells found no business row" in result.stderr

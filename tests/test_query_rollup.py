@@ -460,7 +460,7 @@ def test_segments_joins_business_table(con, logs, tmp_path):
         "segments",
         {"logs": path, "segment_cols": "region", "business": str(tmp_path / "biz.csv")},
     )
-    assert out.column_names == ROLLUP_COLUMNS + ["tier", "revenue"]
+    assert out.column_names == ROLLUP_COLUMNS + ["tier", "revenue", "business_found"]
     rollup = run_query(con, "rollup", {"logs": path, "segment_cols": "region"})
     check_rollup(
         out,
@@ -470,8 +470,64 @@ def test_segments_joins_business_table(con, logs, tmp_path):
         },
         ["model_version", "region"],
     )
-    tiers = {r["region"]: (r["tier"], r["revenue"]) for r in out.to_pylist()}
-    assert tiers == {"a": ("gold", 120.5), "b": (None, None)}
+    tiers = {r["region"]: (r["tier"], r["revenue"], r["business_found"]) for r in out.to_pylist()}
+    assert tiers == {"a": ("gold", 120.5, True), "b": (None, None, False)}
+
+
+def test_segments_joins_a_business_table_keyed_by_period_and_differently_named_segments(
+    con, logs, tmp_path
+):
+    rows, path = logs
+    rollup = run_query(con, "rollup", {"logs": path, "segment_cols": "region"})
+    weeks = sorted(set(rollup["period"].to_pylist()))
+    # weekly revenue per region, dated by the week's Sunday, keys named differently;
+    # region b has no row in the second week, and one row falls in a week without logs
+    lines = ["week_ending,region_code,revenue"]
+    revenue = {}
+    for i, monday in enumerate(weeks):
+        for region in ("a", "b"):
+            if (i, region) == (1, "b"):
+                continue
+            revenue[(monday, region)] = 100.0 * i + (region == "b")
+            lines.append(f"{monday + dt.timedelta(days=6)},{region},{revenue[(monday, region)]}")
+    lines.append(f"{weeks[-1] + dt.timedelta(days=13)},a,999")
+    (tmp_path / "weekly.csv").write_text("\n".join(lines) + "\n")
+    out = run_query(
+        con,
+        "segments",
+        {
+            "logs": path,
+            "segment_cols": "region",
+            "business": str(tmp_path / "weekly.csv"),
+            "business_segment_cols": "region_code",
+            "business_period_col": "week_ending",
+        },
+    )
+    assert out.column_names == ROLLUP_COLUMNS + ["revenue", "business_found"]
+    assert out.num_rows == rollup.num_rows
+    for r in out.to_pylist():
+        want = revenue.get((r["period"], r["region"]))
+        assert (r["revenue"], r["business_found"]) == (want, want is not None), r
+    assert (
+        sum(not r["business_found"] for r in out.to_pylist())
+        == sum(1 for r in rollup.to_pylist() if (r["period"], r["region"]) not in revenue)
+        > 0
+    )
+    (tmp_path / "twice.csv").write_text(
+        f"week_ending,region_code,revenue\n{weeks[0]},a,1\n{weeks[0] + dt.timedelta(days=2)},a,2\n"
+    )
+    with pytest.raises(dbmetrics.DbmetricsError, match="more than one row"):
+        run_query(
+            con,
+            "segments",
+            {
+                "logs": path,
+                "segment_cols": "region",
+                "business": str(tmp_path / "twice.csv"),
+                "business_segment_cols": "region_code",
+                "business_period_col": "week_ending",
+            },
+        )
 
 
 def test_segments_refuses_duplicate_business_keys(con, logs, tmp_path):

@@ -96,6 +96,11 @@ def emit(
         sys.stdout.flush()
         encode(table, fmt, sys.stdout.buffer)
         sys.stdout.buffer.flush()
+    missing = _unmatched(table)
+    if missing:
+        session.note(
+            f"{missing} of {table.num_rows} cells found no business row (business_found false)"
+        )
     if flagged:
         session.note(f"{flagged} flagged row{'s' if flagged > 1 else ''} in column '{flag_column}'")
         return EXIT_FLAGGED
@@ -201,3 +206,13 @@ def _left_out(hidden: list[str], total: int, width: int | None) -> str:
         "See them with --all-columns, or choose with --columns A,B,..."
     )
     return "\n".join(textwrap.wrap(text, width or 100, break_on_hyphens=False))
+
+
+def _unmatched(table: pa.Table) -> int:
+    """Rows whose BOOLEAN ``business_found`` (the segments query's) is false."""
+    if "business_found" not in table.column_names:
+        return 0
+    found = table["business_found"]
+    if not pa.types.is_boolean(found.type):
+        return 0
+    return pc.sum(pc.cast(pc.invert(found), pa.int64())).as_py() or 0

@@ -13,13 +13,15 @@ from .header import Param, QueryInfo
 
 INTEGER = re.compile(r"[+-]?[0-9]+")
 EMPTY_MEANS_NONE = ("label_col",)  # label_col= : a log without labels
+SAME_AS = re.compile(r"same as ([a-z_][a-z0-9_]*)")  # default: another parameter's text
 NUMBER = re.compile(r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?")
 
 
 def with_defaults(info: QueryInfo, params: dict) -> dict:
     """Every declared parameter -> its text: as given, else its default, else None.
 
-    Empty text given means "none" where that makes sense (label_col= for label-free logs,
+    A default written `same as OTHER` takes OTHER's text (e.g. a business table's key columns
+    named as the log's). Empty text given means "none" where that makes sense (label_col= for label-free logs,
     or an optional parameter); a parameter with any other default cannot be emptied.
     Unknown names and missing required parameters are errors.
     """
@@ -45,6 +47,10 @@ def with_defaults(info: QueryInfo, params: dict) -> dict:
                 f"pass --set {p.name}=..."
             )
         texts[p.name] = text
+    for p in info.params:
+        same = SAME_AS.fullmatch(p.default or "")
+        if same and params.get(p.name) is None and same.group(1) in texts:
+            texts[p.name] = texts[same.group(1)]
     return texts
 
 
