@@ -84,7 +84,8 @@ def command(session, settings, start, end, latest, segment, measure, title, outp
 
     \b
     Example:
-      dbmetrics --project demo_parquet/dbmetrics.toml report --segment region -o report.html
+      dbmetrics report --set logs=demo_parquet/logs --set id_col=prediction_id \\
+          --set labels=demo_parquet/labels/labels.parquet --segment region -o report.html
     """
     from dbmetrics import queries, report
 

@@ -39,6 +39,7 @@ table { border-collapse: collapse; margin: 0.8em 0; font-size: 0.9em; }
 th, td { padding: 0.25em 0.7em; border-bottom: 1px solid #e2e2e2; text-align: left;
          vertical-align: top; }
 th { background: #f2f2f2; }
+td:first-child { white-space: nowrap; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 tr.flagged td { background: #fff1d6; }
 tr.reference td { background: #eef4fa; font-style: italic; }
