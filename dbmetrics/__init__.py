@@ -2,11 +2,11 @@
 
 import duckdb
 
-from .errors import DbmetricsError
+from .errors import DbmetricsError, DbmetricsWarning
 from .functions import FUNCTIONS, register
 
 __version__ = "0.1.0"
-__all__ = ["FUNCTIONS", "DbmetricsError", "__version__", "connect", "register"]
+__all__ = ["FUNCTIONS", "DbmetricsError", "DbmetricsWarning", "__version__", "connect", "register"]
 
 
 def connect(database: str = ":memory:", **config) -> duckdb.DuckDBPyConnection:

@@ -5,6 +5,7 @@ from collections import Counter, defaultdict
 import duckdb
 
 from dbmetrics.errors import DbmetricsError
+from dbmetrics.queries import score_kind
 from dbmetrics.queries.header import bound_values
 from dbmetrics.queries.schema import first_line, open_source
 
@@ -98,6 +99,7 @@ def assemble(con, r: Resolved, fetch) -> Report:
     issues = row_issues(r, grouped)
     classes = version_classes(grouped)
     issues.append(Issue("classes", "k_differs", sum(v.other_k_rows for v in classes), True))
+    issues.append(kind_issue(roles.kind, grouped))
     notes, file_stats, drift = [], (), ()
     if files.is_parquet(r.logs):
         drift = tuple(files.drift(con, r.logs, role_of))
@@ -145,7 +147,7 @@ def assemble(con, r: Resolved, fetch) -> Report:
     if roles.label is None:
         notes.append("labels not checked: label_col is empty")
     periods = defaultdict(int)
-    for period, version, _, _, _, n in grouped:
+    for period, version, _, _, _, _, n in grouped:
         periods[(period, version)] += n
     issues = tuple(sorted(issues, key=lambda i: SECTIONS.index(i.check)))
     clean = not any(i.problem and i.count for i in issues) and not any(d.problem for d in drift)
@@ -168,7 +170,7 @@ def row_issues(r: Resolved, grouped: list) -> list:
     score = Counter()
     label = Counter()
     null_time = null_version = 0
-    for period, version, _, score_issue, label_issue, n in grouped:
+    for period, version, _, score_issue, label_issue, _, n in grouped:
         score[score_issue] += n
         label[label_issue] += n
         null_time += n if period is None else 0
@@ -189,11 +191,26 @@ def row_issues(r: Resolved, grouped: list) -> list:
     )
 
 
+def kind_issue(kind: str, grouped: list) -> Issue:
+    """scores_kind_mismatch: every row's scores (not a sample) against scores_kind; the
+    count is the rows that contradict it, the detail the likely kind."""
+    shapes = Counter()
+    for *_, shape, n in grouped:
+        if shape is not None:
+            shapes[shape] += n
+    message = score_kind.mismatch(kind, shapes, sampled=False)
+    fitting = shapes["distribution"] + shapes["unit"]
+    count = (
+        fitting if kind.endswith("logit") or kind == "logits" else sum(shapes.values()) - fitting
+    )
+    return Issue("scores", "scores_kind_mismatch", count if message else 0, True, message or "")
+
+
 def version_classes(grouped: list) -> list:
     """Per version: rows with a K, the usual K (most rows; the smaller on a tie), the rows
     with another K, and every K seen."""
     ks = defaultdict(Counter)
-    for _, version, k, _, _, n in grouped:
+    for _, version, k, _, _, _, n in grouped:
         if k is not None:
             ks[version][k] += n
     out = []

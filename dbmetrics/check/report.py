@@ -15,6 +15,8 @@ MEANINGS = {
     "infinite_scores": "a +inf logit or every class -inf (logits); an infinite probability (probs)",
     "negative_probs": "a negative probability",
     "probs_not_summing_to_1": "probabilities do not sum to 1 within the tolerance",
+    "scores_kind_mismatch": "scores that contradict scores_kind (probabilities declared as "
+    "logits, or the reverse; detail: the likely kind)",
     "k_differs": "scores length differs from its version's usual K",
     "unlabelled": "label NULL (not labelled yet)",
     "unknown_class": "label is not one of the names in classes",

@@ -7,6 +7,7 @@ its scores are bad (its range only when its K is known).
 
 from dbmetrics.queries.roles import class_index
 from dbmetrics.queries.schema import quote
+from dbmetrics.queries.score_kind import is_binary, shape_sql
 from dbmetrics.queries.state_sql import nested, predictions
 
 from .params import Resolved
@@ -55,25 +56,27 @@ def label_reasons(r: Resolved) -> tuple:
 
 
 def rows(r: Resolved) -> str:
-    """period x version x K x score reason x label reason -> rows (reason NULL: fine)."""
+    """period x version x K x score reason x label reason x score shape -> rows (reason NULL:
+    fine; shape as score_kind.shape_sql, on the raw scores)."""
     kind = r.roles.kind
     score = SCORE_REASONS + (PROB_REASONS if kind in ("probs", "binary_prob") else LOGIT_REASONS)
     labels = label_reasons(r)
     version = quote(r.roles.version)
     cast = (
-        f"SELECT day, {version}, label, CAST(scores AS DOUBLE[]) AS s\n"
+        f"SELECT day, {version}, label, CAST(scores AS DOUBLE[]) AS s,\n"
+        f"       {shape_sql('scores[2]' if is_binary(kind) else 'scores', kind)} AS shape\n"
         f"FROM {nested(predictions(r.roles))}"
     )
     sized = f"SELECT *, CASE WHEN len(s) > 0 THEN len(s) END AS k\nFROM {nested(cast)}"
     judged = (
         f"SELECT day, {version}, k,\n"
         f"    {cases(score)} AS score_issue,\n"
-        f"    {cases(labels) if labels else 'NULL'} AS label_issue\n"
+        f"    {cases(labels) if labels else 'NULL'} AS label_issue, shape\n"
         f"FROM {nested(sized)}"
     )
     return (
         f"SELECT CAST(date_trunc($grain, day) AS DATE) AS period, {version} AS version, k,\n"
-        f"       score_issue, label_issue, count(*) AS n\n"
+        f"       score_issue, label_issue, shape, count(*) AS n\n"
         f"FROM {nested(judged)}\nGROUP BY ALL"
     )
 

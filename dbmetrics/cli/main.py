@@ -10,7 +10,7 @@ import duckdb
 
 from dbmetrics.cli import check, demo, partials, plot, project, queries, report, run, sql
 from dbmetrics.cli.messages import one_line
-from dbmetrics.cli.session import Session
+from dbmetrics.cli.session import Session, warnings_to_stderr
 from dbmetrics.errors import DbmetricsError
 
 EXIT_INTERRUPTED = 130
@@ -70,6 +70,7 @@ def cli(ctx, project_file, database, memory_limit, threads, quiet, verbose):
     settings = project.load(project.find(project_file))
     session = Session(settings, database, memory_limit, threads, quiet, verbose)
     ctx.obj = session
+    ctx.with_resource(warnings_to_stderr())
     ctx.call_on_close(session.close)
 
 

@@ -5,8 +5,10 @@ Precedence: command-line option, then environment variable, then project file, t
 
 from __future__ import annotations
 
+import contextlib
 import sys
-from collections.abc import Callable
+import warnings
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from typing import TypeVar
 
@@ -16,6 +18,7 @@ import duckdb
 import dbmetrics
 from dbmetrics.cli import progress
 from dbmetrics.cli.project import Project
+from dbmetrics.errors import DbmetricsWarning
 
 T = TypeVar("T")
 
@@ -77,3 +80,21 @@ class Session:
         """A note on stderr unless ``--quiet``."""
         if not self.quiet:
             click.echo(message, err=True)
+
+
+@contextlib.contextmanager
+def warnings_to_stderr() -> Iterator[None]:
+    """Within: each DbmetricsWarning is one line on stderr, every time it is issued (even
+    under --quiet: a warning is about the numbers, not the progress); other warnings as usual."""
+    with warnings.catch_warnings():
+        shown = warnings.showwarning
+
+        def show(message, category, filename, lineno, file=None, line=None):
+            if issubclass(category, DbmetricsWarning):
+                click.echo(f"dbmetrics: warning: {' '.join(str(message).split())}", err=True)
+            else:
+                shown(message, category, filename, lineno, file, line)
+
+        warnings.simplefilter("always", DbmetricsWarning)
+        warnings.showwarning = show
+        yield

@@ -3,10 +3,11 @@
 import duckdb
 import pyarrow as pa
 
-from dbmetrics.errors import DbmetricsError
+from dbmetrics.errors import DbmetricsError, warn
 
+from . import score_kind
 from .engine import CLASS_STATE_VIEW, STATE_VIEW
-from .render import render_query
+from .render import Rendered, rendered
 from .schema import first_line, open_source
 
 
@@ -14,11 +15,13 @@ def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict, query_dir
     """Render `name` with `params` (text values, as from the CLI), execute, fetch as Arrow.
 
     STATE is computed first by the numpy engine and read from a registered table, which
-    is dropped again afterwards.
+    is dropped again afterwards. Scores that do not look like `scores_kind` says give a
+    DbmetricsWarning (see score_kind.py).
     """
     try:
-        sql, bound = render_query(con, name, params, query_dirs, materialize=True)
-        table = con.sql(sql, params=bound).to_arrow_table()
+        r = rendered(con, name, params, query_dirs, materialize=True)
+        check_kind(con, r)
+        table = con.sql(r.sql, params=r.bound).to_arrow_table()
     except duckdb.Error as exc:
         raise DbmetricsError(f"query `{name}` failed: {explain(con, params, exc)}") from exc
     finally:
@@ -33,6 +36,17 @@ def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict, query_dir
             "in a view"
         )
     return table
+
+
+def check_kind(con, r: Rendered) -> None:
+    """Warn when a sample of the scores contradicts scores_kind."""
+    if r.roles is None:
+        return
+    logs = r.roles.logs
+    shapes = score_kind.sample_shapes(con, logs.sql, r.roles.scores, r.roles.kind, logs.bound)
+    message = score_kind.mismatch(r.roles.kind, shapes)
+    if message:
+        warn(message)
 
 
 def explain(con, params: dict, exc: duckdb.Error) -> str:

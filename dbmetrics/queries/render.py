@@ -5,6 +5,7 @@ parameter text is ever pasted into SQL.
 """
 
 import re
+from dataclasses import dataclass
 
 import duckdb
 
@@ -13,12 +14,24 @@ from dbmetrics.errors import DbmetricsError
 from .catalog import get_query
 from .engine import engine_pays, materialized_states
 from .header import COLUMN_MAP, PLACEHOLDER, QueryInfo, bound_values
-from .roles import column_roles
+from .roles import ColumnRoles, column_roles
 from .schema import open_source, quote
 from .state_sql import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS, fragments
 from .values import convert, split_names, with_defaults
 
 ALIAS = re.compile(r"\bAS\s+([a-z_][a-z0-9_]*)\b")  # lower-case aliases; SQL types are upper-case
+
+
+@dataclass(frozen=True)
+class Rendered:
+    """A rendered query: its SQL, the bound values, the parameter texts after defaults, and
+    the column roles checked against the logs (None for a query without them or on a store)."""
+
+    info: QueryInfo
+    sql: str
+    bound: dict
+    texts: dict
+    roles: ColumnRoles | None
 
 
 def render_query(
@@ -29,6 +42,18 @@ def render_query(
     materialize: bool = False,
 ) -> tuple:
     """(sql, bound): the query's SQL and the values for exactly the `$names` it uses."""
+    r = rendered(con, name, params, query_dirs, materialize)
+    return r.sql, r.bound
+
+
+def rendered(
+    con: duckdb.DuckDBPyConnection,
+    name: str,
+    params: dict,
+    query_dirs=None,
+    materialize: bool = False,
+) -> Rendered:
+    """The query rendered with `params`, with what a caller needs to judge its result."""
     info = get_query(name, query_dirs)
     included = [
         get_query(n[len("query:") :], query_dirs)
@@ -47,7 +72,7 @@ def render_query(
 
 def render_info(
     con, info: QueryInfo, params: dict, included: dict, materialize: bool = False
-) -> tuple:
+) -> Rendered:
     """materialize: compute STATE now with the numpy engine (engine.py) and read it from a
     registered table; otherwise {{state}} is the equivalent SQL with one UDF call per row."""
     texts = with_defaults(info, params)
@@ -61,7 +86,7 @@ def render_info(
         for p in info.params
         if p.kind == "source" and texts[p.name] is not None
     }
-    filled = {}
+    filled, roles = {}, None
     if all(p in texts for p in COLUMN_MAP) and texts.get("partials") is not None:
         from dbmetrics.partials import store_fragments  # partials builds on the saved queries
 
@@ -110,7 +135,7 @@ def render_info(
             lambda m, inner=inner: fill(m.group(1), filled, inner), inner.body
         )
     sql = PLACEHOLDER.sub(lambda m: fill(m.group(1), filled, info), info.body)
-    return sql, bound_values(sql, values)
+    return Rendered(info, sql, bound_values(sql, values), texts, roles)
 
 
 def checked_names(p, text) -> str:
