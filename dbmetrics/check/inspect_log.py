@@ -8,6 +8,7 @@ from dbmetrics.errors import DbmetricsError
 from dbmetrics.queries import score_kind
 from dbmetrics.queries.header import bound_values
 from dbmetrics.queries.schema import first_line, open_source
+from dbmetrics.queries.values import split_names
 
 from . import files, sql
 from .params import Resolved, resolve
@@ -100,6 +101,8 @@ def assemble(con, r: Resolved, fetch) -> Report:
     classes = version_classes(grouped)
     issues.append(Issue("classes", "k_differs", sum(v.other_k_rows for v in classes), True))
     issues.append(kind_issue(roles.kind, grouped))
+    if roles.classes:
+        issues.append(classes_issue(split_names(roles.classes_text), classes))
     notes, file_stats, drift = [], (), ()
     if files.is_parquet(r.logs):
         drift = tuple(files.drift(con, r.logs, role_of))
@@ -204,6 +207,19 @@ def kind_issue(kind: str, grouped: list) -> Issue:
         fitting if kind.endswith("logit") or kind == "logits" else sum(shapes.values()) - fitting
     )
     return Issue("scores", "scores_kind_mismatch", count if message else 0, True, message or "")
+
+
+def classes_issue(names: list, classes: list) -> Issue:
+    """classes_count_differs: rows of versions whose usual K is not the number of names."""
+    off = [v for v in classes if v.usual_k is not None and v.usual_k != len(names)]
+    detail = ", ".join(f"{v.version}: K = {v.usual_k}" for v in off)
+    return Issue(
+        "classes",
+        "classes_count_differs",
+        sum(v.rows for v in off),
+        True,
+        f"classes names {len(names)}; {detail}" if off else "",
+    )
 
 
 def version_classes(grouped: list) -> list:

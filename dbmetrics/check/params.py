@@ -5,21 +5,15 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.queries import get_query
-from dbmetrics.queries.header import QueryInfo, parse_param
-from dbmetrics.queries.roles import NUMERIC_TYPES, ColumnRoles, column_roles
+from dbmetrics.queries.header import QueryInfo, column_role_params, parse_param
+from dbmetrics.queries.roles import NUMERIC_TYPES, ColumnRoles, column_roles, time_zone
 from dbmetrics.queries.schema import Source, open_source
 from dbmetrics.queries.values import convert, with_defaults
 
-SHARED = (
-    "time_col",
-    "scores_col",
-    "scores_kind",
-    "label_col",
-    "version_col",
-    "grain",
-    "labels",
-    "classes",
+# The saved queries' column roles and grain, but logs and id_col (the check's own words),
+# segment_cols and bins (the check neither groups by segment nor bins).
+SHARED = tuple(
+    p.name for p in column_role_params() if p.name not in ("logs", "id_col", "segment_cols", "bins")
 )
 OWN = (
     "param logs (source, required): prediction log: a Parquet file, glob or "
@@ -39,10 +33,10 @@ RESERVED = {"day", "scores", "label", "s", "k", "score_issue", "label_issue"}
 
 def info() -> QueryInfo:
     """The check's parameters, described like a saved query's."""
-    rollup = get_query("rollup")
+    shared = {p.name: p for p in column_role_params()}
     here = Path(__file__)
     own = [parse_param(text, here) for text in OWN]
-    params = own[:1] + [rollup.param(n) for n in SHARED] + own[1:]
+    params = own[:1] + [shared[n] for n in SHARED] + own[1:]
     return QueryInfo(
         "check",
         "Health report of a prediction log",
@@ -88,7 +82,9 @@ def resolve(con, params: dict) -> Resolved:
         for name in ("logs", "labels")
         if texts[name] is not None
     }
+    texts["timezone"] = time_zone(con, texts["timezone"])
     roles = column_roles({**texts, "segment_cols": None, "bins": None}, sources, RESERVED)
+    values.update(roles.values)
     logs = sources["logs"]
     id_col = logs.column(texts["id_col"], "id_col") if texts["id_col"] else None
     target = logs.column(texts["target_col"], "target_col") if texts["target_col"] else None

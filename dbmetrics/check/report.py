@@ -17,8 +17,9 @@ MEANINGS = {
     "probs_not_summing_to_1": "probabilities do not sum to 1 within the tolerance",
     "scores_kind_mismatch": "scores that contradict scores_kind (probabilities declared as "
     "logits, or the reverse; detail: the likely kind)",
+    "classes_count_differs": "rows of versions whose K is not the number of names in classes",
     "k_differs": "scores length differs from its version's usual K",
-    "unlabelled": "label NULL (not labelled yet)",
+    "unlabelled": "label NULL, NaN or unlabelled_value (not labelled yet)",
     "unknown_class": "label is not one of the names in classes",
     "label_conflict_or_unknown": "the labels table gives the id conflicting labels, an "
     "unknown class name, or -1 (see the labels_table issues)",
@@ -30,7 +31,7 @@ MEANINGS = {
     "duplicate_ids": "rows repeating an id_col value seen before (detail: how many ids)",
     "null_ids": "id_col NULL",
     "null_label_ids": "labels table rows whose id is NULL",
-    "null_labels": "labels table rows whose label is NULL",
+    "null_labels": "labels table rows whose label is NULL, NaN or unlabelled_value",
     "unknown_class_labels": "labels table rows whose label is not one of the names in classes",
     "negative_labels": "labels table rows with a negative label",
     "conflicting_label_ids": "ids the labels table gives different labels (counts ids)",

@@ -126,7 +126,7 @@ def labels_table(r: Resolved) -> str:
 conflicts AS (SELECT id FROM lab WHERE id IS NOT NULL GROUP BY id HAVING min(y) <> max(y))
 SELECT count(*) AS label_rows,
        count(*) FILTER (WHERE id IS NULL) AS null_label_ids,
-       count(*) FILTER (WHERE raw IS NULL) AS null_labels,
+       count(*) FILTER (WHERE y IS NULL) AS null_labels,
        {bad},
        (SELECT count(*) FROM conflicts) AS conflicting_label_ids,
        count(*) FILTER (WHERE id IS NOT NULL AND NOT EXISTS (

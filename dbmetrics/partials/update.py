@@ -46,6 +46,7 @@ RECORDED = (
     "classes",
     "bins",
     "timezone",
+    "unlabelled_value",
 )
 KNOWN = (*COLUMN_MAP, "timezone")
 KEY = "dbmetrics_day_key"
@@ -149,7 +150,7 @@ class Update:
                 zoned = sources["logs"].type_of(roles.time).startswith("TIMESTAMP WITH")
                 narrowed, bound = only_days(roles, [current[k] for k in self.recompute], zoned)
                 values = {"bins": convert(rollup.param("bins"), texts["bins"]), **bound}
-                values["classes"] = texts["classes"]
+                values.update(roles.values)  # $classes, $timezone, $unlabelled_value
                 if "labels" in sources:
                     values.update(sources["labels"].bound)
                 tables = guarded(

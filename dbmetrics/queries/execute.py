@@ -7,8 +7,10 @@ from dbmetrics.errors import DbmetricsError, warn
 
 from . import score_kind
 from .engine import CLASS_STATE_VIEW, STATE_VIEW
-from .render import Rendered, rendered
+from .render import rendered
+from .roles import ColumnRoles
 from .schema import first_line, open_source
+from .values import split_names
 
 
 def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict, query_dirs=None) -> pa.Table:
@@ -19,8 +21,7 @@ def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict, query_dir
     DbmetricsWarning (see score_kind.py).
     """
     try:
-        r = rendered(con, name, params, query_dirs, materialize=True)
-        check_kind(con, r)
+        r = rendered(con, name, params, query_dirs, materialize=True, inspect=check_scores)
         table = con.sql(r.sql, params=r.bound).to_arrow_table()
     except duckdb.Error as exc:
         raise DbmetricsError(f"query `{name}` failed: {explain(con, params, exc)}") from exc
@@ -38,13 +39,16 @@ def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict, query_dir
     return table
 
 
-def check_kind(con, r: Rendered) -> None:
-    """Warn when a sample of the scores contradicts scores_kind."""
-    if r.roles is None:
-        return
-    logs = r.roles.logs
-    shapes = score_kind.sample_shapes(con, logs.sql, r.roles.scores, r.roles.kind, logs.bound)
-    message = score_kind.mismatch(r.roles.kind, shapes)
+def check_scores(con, roles: ColumnRoles) -> None:
+    """From a sample of the scores: an error when `classes` names another number of classes
+    than K, a warning when the scores contradict scores_kind."""
+    logs = roles.logs
+    found = score_kind.sample(con, logs.sql, roles.scores, roles.kind, logs.bound)
+    if roles.classes:
+        wrong = score_kind.classes_mismatch(split_names(roles.classes_text), found, roles.scores)
+        if wrong:
+            raise DbmetricsError(wrong)
+    message = score_kind.mismatch(roles.kind, found.shapes)
     if message:
         warn(message)
 

@@ -13,6 +13,9 @@ A saved query is one .sql file that opens with a header of `--` lines:
     --     first, most important first; a column(s) parameter stands for the columns it names)
     -- example: dbmetrics run rollup --set logs=logs/
     --     (a line indented by three or more spaces continues the entry above)
+    -- include: column_roles
+    --     (the column-role parameters of role_params.py, in their place; a parameter the
+    --     query declares itself replaces the included one of that name)
 
 The body after the header is SQL with `$name` for bound values and `{{name}}` for rendered
 fragments: a declared source/column parameter (quoted), a column-role fragment (state_sql.py),
@@ -20,11 +23,17 @@ or `{{query:NAME}}`, another saved query's body rendered with the same parameter
 `$name` and parameter placeholder must be declared in the header.
 """
 
+import functools
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from dbmetrics.errors import DbmetricsError
+
+from . import role_params
+from .role_params import REQUIRED_ROLES
+
+COLUMN_MAP = role_params.COLUMN_ROLES  # the column-role parameters' names
 
 TYPES = ("source", "column", "columns", "choice", "date", "number", "integer", "text")
 FRAGMENTS = (
@@ -34,22 +43,11 @@ FRAGMENTS = (
     "segments",
     "segment_match",
 )  # see state_sql.fragments
-COLUMN_MAP = (
-    "logs",
-    "time_col",
-    "scores_col",
-    "scores_kind",
-    "label_col",
-    "version_col",
-    "segment_cols",
-    "labels",
-    "id_col",
-    "classes",
-    "bins",
-)
 
 PARAM = re.compile(r"param\s+([a-z_][a-z0-9_]*)\s*\(([^()]*(?:\([^()]*\))?[^()]*)\)\s*:\s*(.+)")
-KEYED = re.compile(r"(name|summary|example|note|show|output\s+[A-Za-z_][A-Za-z0-9_]*)\s*:\s*(.*)")
+KEYED = re.compile(
+    r"(name|summary|example|note|show|include|output\s+[A-Za-z_][A-Za-z0-9_]*)\s*:\s*(.*)"
+)
 TYPE = re.compile(r"([a-z]+)(?:\((.*)\))?")
 CHOICES = re.compile(r"[a-z0-9_]+(?:\|[a-z0-9_]+)*")
 SOURCES = re.compile(r"[a-z_][a-z0-9_]*(?:\s*,\s*[a-z_][a-z0-9_]*)*")
@@ -119,6 +117,13 @@ def parse_query(text: str, path: Path, origin: str) -> QueryInfo:
     for key, value in entries:
         if key.startswith("param "):
             params.append(parse_param(key + value, path))
+        elif key == "include":
+            if value != role_params.INCLUDE:
+                raise DbmetricsError(
+                    f"{path}: `-- include: {value}` names no parameter set; "
+                    f"the one there is: {role_params.INCLUDE}"
+                )
+            params.append(None)  # the column roles go here
         elif key.startswith("output"):
             outputs.append((key.split()[1], value))
         elif key == "note":
@@ -139,6 +144,7 @@ def parse_query(text: str, path: Path, origin: str) -> QueryInfo:
             f"{path}: header name `{name}` must be lower-case letters, digits "
             f"and _ and match the file name `{path.stem}`"
         )
+    params = with_included(params)
     names = [p.name for p in params]
     if len(set(names)) != len(names):
         raise DbmetricsError(f"{path}: a parameter is declared twice: {', '.join(names)}")
@@ -157,6 +163,22 @@ def parse_query(text: str, path: Path, origin: str) -> QueryInfo:
     check_body(info)
     check_show(info)
     return info
+
+
+@functools.cache
+def column_role_params() -> tuple:
+    """The column-role parameters as declared once in role_params.HEADER."""
+    return tuple(parse_param(text, Path(role_params.__file__)) for text in role_params.HEADER)
+
+
+def with_included(params: list) -> list:
+    """`params` with each include marker (None) replaced by the column-role parameters the
+    query does not declare itself."""
+    own = {p.name for p in params if p is not None}
+    out = []
+    for p in params:
+        out.extend([q for q in column_role_params() if q.name not in own] if p is None else [p])
+    return out
 
 
 def header_entries(header: list, path: Path) -> list:
@@ -267,7 +289,7 @@ def check_body(info: QueryInfo) -> None:
         if name.startswith("query:") and NAME.fullmatch(name[len("query:") :]):
             continue  # another saved query, rendered with these parameters (checked then)
         if name in FRAGMENTS:
-            missing = [p for p in COLUMN_MAP if p not in declared]
+            missing = [p for p in REQUIRED_ROLES if p not in declared]
             if missing:
                 raise DbmetricsError(
                     f"{info.path}: {{{{{name}}}}} needs the column-role parameters "

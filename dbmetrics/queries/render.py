@@ -14,7 +14,8 @@ from dbmetrics.errors import DbmetricsError
 from .catalog import get_query
 from .engine import engine_pays, materialized_states
 from .header import COLUMN_MAP, PLACEHOLDER, QueryInfo, bound_values
-from .roles import ColumnRoles, column_roles
+from .role_params import REQUIRED_ROLES
+from .roles import ColumnRoles, column_roles, time_zone
 from .schema import open_source, quote
 from .state_sql import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS, fragments
 from .values import convert, split_names, with_defaults
@@ -52,8 +53,12 @@ def rendered(
     params: dict,
     query_dirs=None,
     materialize: bool = False,
+    inspect=None,
 ) -> Rendered:
-    """The query rendered with `params`, with what a caller needs to judge its result."""
+    """The query rendered with `params`, with what a caller needs to judge its result.
+
+    inspect(con, roles): called once the column roles are checked against the logs, before
+    any state is computed (execute.py looks at a sample of the scores there)."""
     info = get_query(name, query_dirs)
     included = [
         get_query(n[len("query:") :], query_dirs)
@@ -67,11 +72,13 @@ def rendered(
                 f"{info.path}: includes query `{inner.name}`, whose parameters "
                 f"{', '.join(missing)} it does not declare"
             )
-    return render_info(con, info, params, {f"query:{q.name}": q for q in included}, materialize)
+    return render_info(
+        con, info, params, {f"query:{q.name}": q for q in included}, materialize, inspect
+    )
 
 
 def render_info(
-    con, info: QueryInfo, params: dict, included: dict, materialize: bool = False
+    con, info: QueryInfo, params: dict, included: dict, materialize: bool = False, inspect=None
 ) -> Rendered:
     """materialize: compute STATE now with the numpy engine (engine.py) and read it from a
     registered table; otherwise {{state}} is the equivalent SQL with one UDF call per row."""
@@ -87,7 +94,7 @@ def render_info(
         if p.kind == "source" and texts[p.name] is not None
     }
     filled, roles = {}, None
-    if all(p in texts for p in COLUMN_MAP) and texts.get("partials") is not None:
+    if all(p in texts for p in REQUIRED_ROLES) and texts.get("partials") is not None:
         from dbmetrics.partials import store_fragments  # partials builds on the saved queries
 
         store_sql, store_values = store_fragments(texts, params)
@@ -100,7 +107,7 @@ def render_info(
                 if p.name in COLUMN_MAP and p.kind in ("column", "columns") and p.name not in filled
             }
         )
-    elif all(p in texts for p in COLUMN_MAP):
+    elif all(p in texts for p in REQUIRED_ROLES):
         if texts["logs"] is None:
             raise DbmetricsError(
                 f"query `{info.name}` needs parameter `logs` (the prediction "
@@ -112,7 +119,11 @@ def render_info(
             | {out.lower() for q in queries for out, _ in q.outputs}
             | {alias for q in queries for alias in ALIAS.findall(q.body)}
         )
+        texts["timezone"] = time_zone(con, texts.get("timezone"))
         roles = column_roles(texts, sources, reserved)
+        values.update(roles.values)
+        if inspect is not None:
+            inspect(con, roles)
         filled.update(fragments(roles))
         uses = {name for q in queries for name in PLACEHOLDER.findall(q.body)}
         bound = {k: v for s in sources.values() for k, v in s.bound.items()}

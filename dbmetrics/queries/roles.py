@@ -1,14 +1,25 @@
 """Column roles: which column of the logs (and of a label table) plays which part.
 
-`column_roles` checks the role parameters (time_col, scores_col, scores_kind, label_col,
-version_col, segment_cols, labels, id_col, classes) against the real schema and returns a
-`ColumnRoles`; `class_index` turns a label expression into a BIGINT class index.
+`column_roles` checks the role parameters (role_params.COLUMN_ROLES) against the real schema
+and returns a `ColumnRoles`; `class_index` turns a label expression into a BIGINT class
+index, `day` a time column into the prediction's day.
+
+Conventions: a TIMESTAMPTZ's day starts at midnight in `timezone` (default UTC), whatever the
+machine's or the session's time zone; a DATE or naive TIMESTAMP is read as written. A label
+is an integer class index, a whole-number FLOAT/DOUBLE/DECIMAL (what an integer column with
+NULLs becomes after a pandas round trip; NaN = not labelled), or a class name listed in
+`classes`; a value equal to `unlabelled_value` is not labelled yet (NULL).
 """
 
+import difflib
+import math
 from dataclasses import dataclass
+
+import duckdb
 
 from dbmetrics.errors import DbmetricsError
 
+from .role_params import DEFAULTS
 from .schema import Source, quote
 from .values import split_names
 
@@ -31,7 +42,9 @@ INTEGER_TYPES = (
     "UBIGINT",
     "BOOLEAN",
 )
-NUMERIC_TYPES = INTEGER_TYPES + ("FLOAT", "DOUBLE", "DECIMAL", "REAL")
+FRACTIONAL_TYPES = ("FLOAT", "DOUBLE", "DECIMAL", "REAL")
+NUMERIC_TYPES = INTEGER_TYPES + FRACTIONAL_TYPES
+ZONED = "TIMESTAMP WITH TIME ZONE"
 
 
 @dataclass(frozen=True)
@@ -48,14 +61,39 @@ class ColumnRoles:
     labels: Source | None
     id: str | None
     classes: bool
+    timezone: str = DEFAULTS["timezone"]
+    unlabelled: str | None = None
+    classes_text: str | None = None
 
     @property
     def keys(self) -> str:
         return ", ".join(quote(c) for c in (self.version, *self.segments))
 
+    @property
+    def zoned(self) -> bool:
+        """The time column is a TIMESTAMPTZ: its days are cut in `timezone`."""
+        return self.logs.type_of(self.time).startswith(ZONED)
+
+    @property
+    def label_type(self) -> str | None:
+        if self.label is None:
+            return None
+        return (self.labels or self.logs).type_of(self.label)
+
+    @property
+    def values(self) -> dict:
+        """The values the role SQL binds ($classes, $timezone, $unlabelled_value)."""
+        return {
+            "classes": self.classes_text,
+            "timezone": self.timezone,
+            "unlabelled_value": self.unlabelled,
+        }
+
 
 def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
-    """Check the column-role parameters against the logs (and labels) schema."""
+    """Check the column-role parameters against the logs (and labels) schema.
+
+    `timezone` is taken as given: check it first with `time_zone(con, text)`."""
     logs, labels = sources["logs"], sources.get("labels")
     time = logs.column(texts["time_col"], "time_col")
     scores = logs.column(texts["scores_col"], "scores_col")
@@ -95,16 +133,23 @@ def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
             "label_col: labels come from a separate table, so label_col must name its label column"
         )
     label = label_source.column(texts["label_col"], "label_col") if texts["label_col"] else None
-    if (
-        label is not None
-        and not texts["classes"]
-        and not label_source.type_of(label).startswith(INTEGER_TYPES)
-    ):
+    label_type = label_source.type_of(label) if label is not None else None
+    if label is not None and not texts["classes"] and not is_number(label_type):
         raise DbmetricsError(
-            f"label_col: column `{label}` is {label_source.type_of(label)}; "
-            "labels must be 0-based class indices, or names with "
-            "classes=NAME0,NAME1,... in class-index order"
+            f"label_col: column `{label}` is {label_type}; "
+            "labels must be 0-based class indices (integers, or whole numbers in a "
+            "FLOAT/DOUBLE column), or names with classes=NAME0,NAME1,... in class-index order"
         )
+    unlabelled = texts.get("unlabelled_value")
+    if unlabelled is not None and label is not None and is_number(label_type):
+        try:
+            if not math.isfinite(float(unlabelled)):
+                raise ValueError
+        except ValueError:
+            raise DbmetricsError(
+                f"unlabelled_value: `{unlabelled}` is not a number, but label_col `{label}` "
+                f"is {label_type}; give the number that marks a row not labelled yet, e.g. -1"
+            ) from None
     keys = [version, *segments]
     clashes = sorted({k for k in keys if k.lower() in reserved or keys.count(k) > 1})
     if clashes:
@@ -113,8 +158,53 @@ def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
             "or clashes with a computed column name; rename it in a view"
         )
     return ColumnRoles(
-        logs, time, scores, kind, version, segments, label, labels, id_col, bool(texts["classes"])
+        logs,
+        time,
+        scores,
+        kind,
+        version,
+        segments,
+        label,
+        labels,
+        id_col,
+        bool(texts["classes"]),
+        texts.get("timezone") or DEFAULTS["timezone"],
+        unlabelled,
+        texts["classes"],
     )
+
+
+def is_number(kind: str) -> bool:
+    return not kind.endswith("]") and kind.startswith(NUMERIC_TYPES)
+
+
+def time_zone(con: duckdb.DuckDBPyConnection, text: str | None) -> str:
+    """The time zone `text` names (case as DuckDB spells it), or an error with close names."""
+    text = (text or DEFAULTS["timezone"]).strip()
+    names = [row[0] for row in con.execute("SELECT name FROM pg_timezone_names()").fetchall()]
+    for name in names:
+        if name.lower() == text.lower():
+            return name
+    close = difflib.get_close_matches(text, names, n=3, cutoff=0.6)
+    hint = f"; did you mean {', '.join(close)}?" if close else ""
+    raise DbmetricsError(
+        f"timezone: `{text}` is not a time zone DuckDB knows (IANA names such as UTC, "
+        f"Europe/Berlin, America/Los_Angeles){hint}"
+    )
+
+
+def day(roles: ColumnRoles, expr: str) -> str:
+    """The day of the time expression: a TIMESTAMPTZ's local date in $timezone."""
+    if roles.zoned:
+        return f"CAST(timezone($timezone, {expr}) AS DATE)"
+    return f"CAST({expr} AS DATE)"
+
+
+def day_start(roles: ColumnRoles, expr: str) -> str:
+    """A bound TIMESTAMP (midnight of a day) comparable with the time column."""
+    if roles.zoned:
+        return f"timezone($timezone, CAST({expr} AS TIMESTAMP))"
+    return f"CAST({expr} AS TIMESTAMP)"
 
 
 def check_type(source: Source, col: str, role: str, prefixes: tuple, wanted: str) -> None:
@@ -124,13 +214,29 @@ def check_type(source: Source, col: str, role: str, prefixes: tuple, wanted: str
 
 
 def class_index(roles: ColumnRoles, expr: str) -> str:
-    """A label expression as a BIGINT class index; unknown class names become -1 (bad)."""
-    if not roles.classes:  # a label too large for BIGINT is a bad label, not a failed query
-        return (
-            f"CASE WHEN {expr} IS NULL THEN NULL ELSE coalesce(TRY_CAST({expr} AS BIGINT), -1) END"
+    """A label expression as a BIGINT class index: NULL when not labelled (NULL, NaN, or
+    $unlabelled_value); -1 (a bad label) for an unknown class name or a number that is not
+    a whole number or too large for BIGINT."""
+    kind = roles.label_type or "BIGINT"
+    fractional = not roles.classes and kind.startswith(FRACTIONAL_TYPES)
+    number = f"CAST({expr} AS DOUBLE)" if fractional else expr
+    # NaN by its text: DuckDB 2.0 folds isnan() to false from Parquet min/max statistics,
+    # which leave NaN out
+    nan = f" OR CAST({number} AS VARCHAR) IN ('nan', '-nan')" if fractional else ""
+    missing = f"{expr} IS NULL{nan}"
+    if roles.unlabelled is not None:
+        missing += (
+            f" OR CAST({expr} AS VARCHAR) = $unlabelled_value"
+            if roles.classes or not is_number(kind)
+            else f" OR {number} = CAST($unlabelled_value AS DOUBLE)"
         )
-    return (
-        f"CASE WHEN {expr} IS NULL THEN NULL ELSE coalesce(list_position("
-        f"list_transform(string_split($classes, ','), lambda c: trim(c)), "
-        f"CAST({expr} AS VARCHAR)) - 1, -1) END"
-    )
+    if roles.classes:
+        index = (
+            f"coalesce(list_position(list_transform(string_split($classes, ','), "
+            f"lambda c: trim(c)), CAST({expr} AS VARCHAR)) - 1, -1)"
+        )
+    elif fractional:
+        index = f"CASE WHEN {number} = floor({number}) THEN coalesce(TRY_CAST({number} AS BIGINT), -1) ELSE -1 END"
+    else:  # a label too large for BIGINT is a bad label, not a failed query
+        index = f"coalesce(TRY_CAST({expr} AS BIGINT), -1)"
+    return f"CASE WHEN {missing} THEN NULL ELSE {index} END"

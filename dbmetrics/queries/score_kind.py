@@ -17,9 +17,12 @@ Rows that are NULL, empty, or hold a NULL, NaN or infinite entry are not judged.
   distributions (scores outside [0, 1]): they look like logits, or percentages when every
   such row sums to 100.
 
-`sample_shapes` reads the first SAMPLE_ROWS non-NULL scores only (DuckDB stops the scan
-there); `dbmetrics check` classes every row with the same SQL.
+`sample` reads the first SAMPLE_ROWS non-NULL scores only (DuckDB stops the scan there),
+and also gives the class counts K seen there (`classes_mismatch` compares them with the
+names in `classes`); `dbmetrics check` classes every row with the same SQL.
 """
+
+from dataclasses import dataclass
 
 from dbmetrics.kernels.distributions import SUM_TOLERANCE
 
@@ -53,15 +56,48 @@ def shape_sql(expr: str, kind: str) -> str:
     )
 
 
-def sample_shapes(con, logs_sql: str, scores_col: str, kind: str, bound: dict) -> dict:
-    """shape -> rows among the first SAMPLE_ROWS rows with non-NULL scores."""
+@dataclass(frozen=True)
+class Sample:
+    """shape -> rows among the first SAMPLE_ROWS rows with non-NULL scores, and the
+    smallest and largest K there (None when no row has a K)."""
+
+    shapes: dict
+    k_min: int | None
+    k_max: int | None
+
+
+def sample(con, logs_sql: str, scores_col: str, kind: str, bound: dict) -> Sample:
     col = quote(scores_col)
+    k = "2" if is_binary(kind) else "nullif(len(s), 0)"
     sql = (
-        f"SELECT {shape_sql('s', kind)} AS shape, count(*) FROM (\n"
+        f"SELECT {shape_sql('s', kind)} AS shape, count(*), min({k}), max({k}) FROM (\n"
         f"    SELECT {col} AS s FROM {logs_sql} WHERE {col} IS NOT NULL LIMIT {SAMPLE_ROWS}\n"
         ") GROUP BY ALL"
     )
-    return {shape: n for shape, n in con.execute(sql, bound).fetchall() if shape is not None}
+    rows = con.execute(sql, bound).fetchall()
+    lows = [r[2] for r in rows if r[2] is not None]
+    highs = [r[3] for r in rows if r[3] is not None]
+    return Sample(
+        {shape: n for shape, n, _, _ in rows if shape is not None},
+        min(lows) if lows else None,
+        max(highs) if highs else None,
+    )
+
+
+def classes_mismatch(names: list, s: Sample, scores_col: str) -> str | None:
+    """An error message when `classes` names a different number of classes than the scores
+    have (every sampled row has the same K), else None.
+
+    >>> classes_mismatch(["a", "b"], Sample({}, 3, 3), "logits")
+    'classes: 2 names given, but the scores (logits) have K = 3 classes; list one name per \
+class, in class-index order'
+    """
+    if s.k_min is None or s.k_min != s.k_max or len(names) == s.k_min:
+        return None
+    return (
+        f"classes: {len(names)} names given, but the scores ({scores_col}) have K = {s.k_min} "
+        "classes; list one name per class, in class-index order"
+    )
 
 
 def mismatch(kind: str, shapes: dict, sampled: bool = True) -> str | None:

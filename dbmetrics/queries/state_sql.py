@@ -23,7 +23,7 @@ rows. Every sum is a Kahan sum (fsum) and 0 when empty, so states add across day
 
 import textwrap
 
-from .roles import KINDS, ColumnRoles, class_index
+from .roles import KINDS, ColumnRoles, class_index, day, day_start
 from .schema import quote
 
 STATE_COLUMNS = (
@@ -86,11 +86,11 @@ def predictions(roles: ColumnRoles, window: bool = False) -> str:
     if window:
         time = f"logs.{quote(roles.time)}"
         where = (
-            f"\nWHERE {time} >= CAST($window_start AS TIMESTAMP)"
-            f" AND {time} < CAST($window_end AS TIMESTAMP)"
+            f"\nWHERE {time} >= {day_start(roles, '$window_start')}"
+            f" AND {time} < {day_start(roles, '$window_end')}"
         )
     return (
-        f"SELECT CAST(logs.{quote(roles.time)} AS DATE) AS day, {keys},\n"
+        f"SELECT {day(roles, 'logs.' + quote(roles.time))} AS day, {keys},\n"
         f"       {scores} AS scores,\n       {label} AS label\n"
         f"FROM {roles.logs.sql} AS logs{join}{where}"
     )
