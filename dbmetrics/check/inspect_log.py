@@ -5,7 +5,7 @@ from collections import Counter, defaultdict
 import duckdb
 
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.queries import score_kind
+from dbmetrics.queries import notes, score_kind
 from dbmetrics.queries.header import bound_values
 from dbmetrics.queries.schema import first_line, open_source
 from dbmetrics.queries.values import split_names
@@ -97,7 +97,7 @@ def assemble(con, r: Resolved, fetch) -> Report:
     }
     columns = tuple((c, t, role_of.get(c)) for c, t in r.logs.columns.items())
     grouped = fetch(sql.rows(r))
-    issues = row_issues(r, grouped)
+    issues = row_issues(r, grouped) + empty_answers(r, grouped)
     classes = version_classes(grouped)
     issues.append(Issue("classes", "k_differs", sum(v.other_k_rows for v in classes), True))
     issues.append(kind_issue(roles.kind, grouped))
@@ -192,6 +192,32 @@ def row_issues(r: Resolved, grouped: list) -> list:
             Issue("versions", "null_versions", null_version, True),
         ]
     )
+
+
+def empty_answers(r: Resolved, grouped: list) -> list:
+    """The log-wide empty answers the saved queries warn about (notes.py): no row with usable
+    scores; a label table whose ids match no prediction."""
+    rows = sum(g[-1] for g in grouped)
+    scored = sum(g[-1] for g in grouped if g[3] is None)
+    matched = sum(g[-1] for g in grouped if g[4] != "unlabelled")
+    no_scores = rows > 0 and scored == 0
+    no_match = r.roles.labels is not None and rows > 0 and matched == 0
+    return [
+        Issue(
+            "scores",
+            "no_usable_scores",
+            rows if no_scores else 0,
+            True,
+            notes.no_usable_scores(rows) if no_scores else "",
+        ),
+        Issue(
+            "labels_table",
+            "labels_match_no_prediction",
+            rows if no_match else 0,
+            True,
+            notes.no_labels(r.texts, rows) if no_match else "",
+        ),
+    ]
 
 
 def kind_issue(kind: str, grouped: list) -> Issue:

@@ -18,6 +18,9 @@ MEANINGS = {
     "scores_kind_mismatch": "scores that contradict scores_kind (probabilities declared as "
     "logits, or the reverse; detail: the likely kind)",
     "classes_count_differs": "rows of versions whose K is not the number of names in classes",
+    "no_usable_scores": "every row's scores are missing or invalid (the metrics are empty)",
+    "labels_match_no_prediction": "no id of the labels table matches a prediction (label "
+    "coverage 0)",
     "k_differs": "scores length differs from its version's usual K",
     "unlabelled": "label NULL, NaN or unlabelled_value (not labelled yet)",
     "unknown_class": "label is not one of the names in classes",

@@ -5,7 +5,7 @@ import pyarrow as pa
 
 from dbmetrics.errors import DbmetricsError, warn
 
-from . import score_kind
+from . import notes, score_kind
 from .engine import CLASS_STATE_VIEW, STATE_VIEW
 from .render import rendered
 from .roles import ColumnRoles
@@ -18,7 +18,8 @@ def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict, query_dir
 
     STATE is computed first by the numpy engine and read from a registered table, which
     is dropped again afterwards. Scores that do not look like `scores_kind` says give a
-    DbmetricsWarning (see score_kind.py).
+    DbmetricsWarning (see score_kind.py), and so does an empty or meaningless result
+    (notes.py).
     """
     try:
         r = rendered(con, name, params, query_dirs, materialize=True, inspect=check_scores)
@@ -36,6 +37,8 @@ def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict, query_dir
             "(an input column shares a computed column's name); rename it "
             "in a view"
         )
+    for message in notes.result_notes(name, r.texts, table):
+        warn(message)
     return table
 
 
