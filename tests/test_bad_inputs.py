@@ -238,8 +238,8 @@ CASES = {
     "ids_of_another_type_in_labels": (
         {"a.parquet": table()},
         {"labels": "LABELS", "id_col": "id"},
-        "query `rollup` failed: Conversion Error",
-        "check failed: Conversion Error",
+        "id_col: `id` is VARCHAR in logs but `id` is BIGINT in labels, so no id can match",
+        "id_col: `id` is VARCHAR in logs but `id` is BIGINT in labels, so no id can match",
     ),
     "time_as_text": (
         {"a.parquet": table(ts=["2026-01-05"] * 4)},

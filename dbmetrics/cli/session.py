@@ -17,8 +17,9 @@ import duckdb
 
 import dbmetrics
 from dbmetrics.cli import progress
+from dbmetrics.cli.messages import one_line
 from dbmetrics.cli.project import Project
-from dbmetrics.errors import DbmetricsWarning
+from dbmetrics.errors import DbmetricsError, DbmetricsWarning
 
 T = TypeVar("T")
 
@@ -56,10 +57,23 @@ class Session:
             if threads:
                 config["threads"] = threads
             self.info(f"database: {database}" + "".join(f", {k}={v}" for k, v in config.items()))
+            if memory_limit:
+                self.check_memory_limit(memory_limit)
             self._con = dbmetrics.connect(database, **config)
             if self.show_progress:
                 progress.enable(self._con)
         return self._con
+
+    def check_memory_limit(self, value: str) -> None:
+        """A size DuckDB cannot read is an error naming where it was given."""
+        where = "--memory-limit" if self.memory_limit else f"memory_limit in {self.project.path}"
+        try:
+            duckdb.connect(":memory:", config={"memory_limit": str(value)}).close()
+        except duckdb.Error as exc:
+            raise DbmetricsError(
+                f"{where}: `{value}` is not a memory size such as 4GB, 500MB or 80% "
+                f"({one_line(exc)})"
+            ) from None
 
     def execute(self, call: Callable[[duckdb.DuckDBPyConnection], T]) -> T:
         """``call(con)`` with progress on a terminal and Ctrl-C interrupting the query."""

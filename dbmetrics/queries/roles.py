@@ -95,6 +95,7 @@ def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
 
     `timezone` is taken as given: check it first with `time_zone(con, text)`."""
     logs, labels = sources["logs"], sources.get("labels")
+    all_found(texts, logs, labels)
     time = logs.column(texts["time_col"], "time_col")
     scores = logs.column(texts["scores_col"], "scores_col")
     version = logs.column(texts["version_col"], "version_col")
@@ -126,7 +127,13 @@ def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
                 "name the prediction id present in both logs and labels"
             )
         id_col = logs.column(texts["id_col"], "id_col")
-        labels.column(texts["id_col"], "id_col")
+        label_id = labels.column(texts["id_col"], "id_col")
+        a, b = logs.type_of(id_col), labels.type_of(label_id)
+        if is_number(a) != is_number(b):
+            raise DbmetricsError(
+                f"id_col: `{id_col}` is {a} in logs but `{label_id}` is {b} in labels, so no "
+                "id can match; store both as numbers or both as text (or cast one in a view)"
+            )
     label_source = labels or logs
     if labels is not None and not texts["label_col"]:
         raise DbmetricsError(
@@ -172,6 +179,51 @@ def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
         unlabelled,
         texts["classes"],
     )
+
+
+# role -> (where it is looked up, the column types that could play it)
+CANDIDATES = {
+    "time_col": ("logs", lambda t: t.startswith(TIME_TYPES)),
+    "scores_col": ("logs", lambda t: t.endswith("]") or is_number(t)),
+    "version_col": ("logs", lambda t: is_key(t)),
+    "segment_cols": ("logs", lambda t: is_key(t)),
+    "id_col": ("logs", lambda t: not t.endswith("]")),
+    "label_col": ("labels", lambda t: is_key(t) or is_number(t)),
+}
+
+
+def all_found(texts: dict, logs: Source, labels: Source | None) -> None:
+    """Every column a role names exists; else one error naming every missing role with the
+    columns of a fitting type that could play it (one missing role: the usual message)."""
+    missing = []
+    for role, (where, fits) in CANDIDATES.items():
+        source = labels if where == "labels" and labels is not None else logs
+        names = split_names(texts.get(role))
+        for name in names:
+            if source.find(name) is None:
+                fitting = [c for c, t in source.columns.items() if fits(t)][:6]
+                missing.append((role, name, source, fitting))
+        if role == "id_col" and labels is not None:
+            missing += [(role, n, labels, []) for n in names if labels.find(n) is None]
+    if len(missing) == 1:
+        role, name, source, _ = missing[0]
+        source.column(name, role)  # raises the one-role message
+    if missing:
+        parts = "; ".join(
+            f"{role} `{name}` not in {source.param}"
+            + (f" (candidates: {', '.join(fitting)})" if fitting else "")
+            for role, name, source, fitting in missing
+        )
+        raise DbmetricsError(
+            f"{len(missing)} column roles name no column: {parts}; set each with "
+            f"--set ROLE=COLUMN or in the project file's [params]; {logs.param} has: "
+            f"{', '.join(logs.columns)}"
+        )
+
+
+def is_key(kind: str) -> bool:
+    """Text or a whole number: a type that can name a version, a segment or a class."""
+    return not kind.endswith("]") and kind.startswith(("VARCHAR", *INTEGER_TYPES))
 
 
 def is_number(kind: str) -> bool:

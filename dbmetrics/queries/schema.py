@@ -28,11 +28,18 @@ class Source:
     bound: dict
     columns: dict
 
-    def column(self, name: str, role: str) -> str:
-        """The column's own spelling (matched case-insensitively, as DuckDB does)."""
+    def find(self, name: str) -> str | None:
+        """The column's own spelling (matched case-insensitively, as DuckDB does), or None."""
         for col in self.columns:
             if col.lower() == name.lower():
                 return col
+        return None
+
+    def column(self, name: str, role: str) -> str:
+        """The column's own spelling, or an error naming the role and the columns."""
+        found = self.find(name)
+        if found is not None:
+            return found
         raise DbmetricsError(
             f"{role}: column `{name}` not found in {self.param}; columns are: "
             f"{', '.join(self.columns)}"

@@ -35,7 +35,7 @@ def with_defaults(info: QueryInfo, params: dict) -> dict:
     texts = {}
     for p in info.params:
         given = params.get(p.name)
-        text = p.default if given is None else (str(given).strip() or None)
+        text = p.default if given is None else (as_text(p.name, given).strip() or None)
         if text is None and p.default is not None and p.name not in EMPTY_MEANS_NONE:
             raise DbmetricsError(
                 f"parameter `{p.name}` cannot be empty; leave it out for its "
@@ -52,6 +52,32 @@ def with_defaults(info: QueryInfo, params: dict) -> dict:
         if same and params.get(p.name) is None and same.group(1) in texts:
             texts[p.name] = texts[same.group(1)]
     return texts
+
+
+def as_text(name: str, value) -> str:
+    """A parameter value given in Python as the text the CLI would pass: a list or tuple of
+    names joined with commas, a date or datetime in ISO form, a bool as true/false, a number
+    as written; text as it is.
+
+    >>> as_text("segment_cols", ["region", "plan"]), as_text("ref_start", dt.date(2026, 1, 5))
+    ('region,plan', '2026-01-05')
+    """
+    if isinstance(value, str):
+        return value
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return repr(value)
+    if isinstance(value, dt.datetime) and value.time() == dt.time() and not value.tzinfo:
+        return value.date().isoformat()  # a day, as pandas gives it
+    if isinstance(value, dt.date):
+        return value.isoformat()
+    if isinstance(value, (list, tuple)) and all(isinstance(v, str) for v in value):
+        return ",".join(value)
+    raise DbmetricsError(
+        f"parameter `{name}` takes text, a number, a date or a list of names; "
+        f"got {type(value).__name__} {value!r:.60}"
+    )
 
 
 def convert(p: Param, text: str | None):
