@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import duckdb
 
-from dbmetrics.queries.schema import Source, first_line
+from dbmetrics.queries.schema import Source, first_line, glob_escape
 
 MESSAGE = 200  # characters of DuckDB's message kept
 
@@ -105,7 +105,9 @@ def unreadable(con, source: Source) -> tuple | None:
     """(file, error) for the first file whose columns cannot all be decoded, else None."""
     for file in file_list(con, source):
         try:
-            con.execute("SELECT count(COLUMNS(*)) FROM read_parquet(?)", [file]).fetchall()
+            con.execute(
+                "SELECT count(COLUMNS(*)) FROM read_parquet(?)", [glob_escape(file)]
+            ).fetchall()
         except duckdb.Error as exc:  # a decoder's message may quote garbage bytes
             text = "".join(c for c in first_line(exc) if c.isprintable())
             return file, text[:MESSAGE] + ("..." if len(text) > MESSAGE else "")

@@ -7,7 +7,7 @@ import duckdb
 from dbmetrics.errors import DbmetricsError
 from dbmetrics.queries import notes, score_kind
 from dbmetrics.queries.header import bound_values
-from dbmetrics.queries.schema import first_line, open_source
+from dbmetrics.queries.schema import first_line, open_source, shadowing
 from dbmetrics.queries.values import split_names
 
 from . import files, sql
@@ -105,7 +105,9 @@ def assemble(con, r: Resolved, fetch) -> Report:
         issues.append(classes_issue(split_names(roles.classes_text), classes))
     notes, file_stats, drift = [], (), ()
     if files.is_parquet(r.logs):
-        drift = tuple(files.drift(con, r.logs, role_of))
+        drift = tuple(files.drift(con, r.logs, role_of)) + tuple(
+            files.Drift(key, role_of.get(key), shadowing(key), True) for key in r.logs.shadowed
+        )
         if "file_row_number" in {c.lower() for c in r.logs.columns}:
             notes.append("out_of_order not checked: the log has its own file_row_number column")
         else:

@@ -9,7 +9,7 @@ from . import notes, score_kind
 from .engine import CLASS_STATE_VIEW, STATE_VIEW
 from .render import rendered
 from .roles import ColumnRoles
-from .schema import first_line, open_source
+from .schema import first_line, open_source, shadowing
 from .values import split_names
 
 
@@ -46,6 +46,8 @@ def check_scores(con, roles: ColumnRoles) -> None:
     """From a sample of the scores: an error when `classes` names another number of classes
     than K, a warning when the scores contradict scores_kind."""
     logs = roles.logs
+    for key in logs.shadowed:
+        warn(f"logs: {shadowing(key)}")
     found = score_kind.sample(con, logs.sql, roles.scores, roles.kind, logs.bound)
     if roles.classes:
         wrong = score_kind.classes_mismatch(split_names(roles.classes_text), found, roles.scores)

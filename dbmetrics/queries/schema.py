@@ -4,7 +4,7 @@ Identifiers reach SQL only double-quoted, spelled as the catalog or the file sch
 them; paths reach SQL only as bound values.
 """
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import duckdb
@@ -27,6 +27,7 @@ class Source:
     sql: str
     bound: dict
     columns: dict
+    shadowed: tuple = ()  # partition keys (key=value folders) that are also file columns
 
     def find(self, name: str) -> str | None:
         """The column's own spelling (matched case-insensitively, as DuckDB does), or None."""
@@ -52,25 +53,88 @@ class Source:
 def open_source(con: duckdb.DuckDBPyConnection, param: str, text: str) -> Source:
     """`text` names a table or view in `con`, else Parquet file(s) or a CSV file.
 
-    A folder reads as `folder/**/*.parquet`; Parquet is read with union_by_name (files whose
-    schemas drift still read; a missing column is NULL) and hive_partitioning.
+    A path that exists (file or folder) is taken literally, glob characters and all; any
+    other text is a glob pattern. A folder reads as `folder/**/*.parquet`. Parquet is read
+    with union_by_name (files whose schemas drift still read; a missing column is NULL), and
+    with hive_partitioning only when the layout is clearly hive-partitioned (`hive_keys`) and
+    no partition key is also a column of the files; such keys are kept in `shadowed` and
+    the file column is read.
     """
     table = find_table(con, text)
     if table is not None:
         return described(con, param, table, {}, text)
     path = text
     try:
-        folder = Path(text).expanduser()
-        is_folder = folder.is_dir()
+        given = Path(text).expanduser()
+        is_folder = given.is_dir()
+        literal = given.exists()
     except (RuntimeError, ValueError, OSError) as exc:
         raise DbmetricsError(f"{param}: `{text}` is not a usable path ({exc})") from None
+    root = given if is_folder else given.parent if literal else glob_root(text)
+    if literal:
+        path = glob_escape(str(given))
     if is_folder:
-        path = str(folder / "**" / "*.parquet")
+        path = path + "/**/*.parquet"
     if path.lower().endswith(CSV_SUFFIXES):
-        sql = f"read_csv(${param}, auto_detect = true)"
-    else:
-        sql = f"read_parquet(${param}, union_by_name = true, hive_partitioning = true)"
-    return described(con, param, sql, {param: path}, text)
+        return described(con, param, f"read_csv(${param}, auto_detect = true)", {param: path}, text)
+    plain = f"read_parquet(${param}, union_by_name = true, hive_partitioning = false)"
+    keys = hive_keys(con, param, path, root)
+    if not keys:
+        return described(con, param, plain, {param: path}, text)
+    files = described(con, param, plain, {param: path}, text)
+    shadowed = tuple(k for k in keys if files.find(k) is not None)
+    if shadowed:
+        return replace(files, shadowed=shadowed)
+    hive = f"read_parquet(${param}, union_by_name = true, hive_partitioning = true)"
+    return described(con, param, hive, {param: path}, text)
+
+
+def shadowing(key: str) -> str:
+    """What a partition key that is also a file column means."""
+    return (
+        f"{key}=... folders in the path name a partition key that is also a column of the "
+        f"files: the file column `{key}` is read, the folder value ignored (rename the folders "
+        "to use it)"
+    )
+
+
+GLOB_CHARS = "*?["
+
+
+def glob_escape(path: str) -> str:
+    """A literal path as a DuckDB glob that matches only itself: each of * ? [ in a class.
+
+    >>> glob_escape("logs/g*/day[1]")
+    'logs/g[*]/day[[]1]'
+    """
+    return "".join(f"[{c}]" if c in GLOB_CHARS else c for c in path)
+
+
+def glob_root(pattern: str) -> Path:
+    """The folder a glob pattern starts from: its path up to the first glob character."""
+    head = pattern
+    for c in GLOB_CHARS:
+        head = head.split(c, 1)[0]
+    return Path(head).expanduser() if head.endswith("/") else Path(head).expanduser().parent
+
+
+def hive_keys(con, param: str, pattern: str, root: Path) -> tuple:
+    """The partition keys when every file lies below `root` in key=value folders only, the
+    same keys in the same order for every file; else ()."""
+    try:
+        files = [r[0] for r in con.execute("SELECT file FROM glob(?)", [pattern]).fetchall()]
+    except duckdb.Error:
+        return ()
+    layouts = set()
+    for file in files:
+        try:
+            parts = Path(file).parent.relative_to(root).parts
+        except ValueError:
+            return ()
+        if not parts or not all("=" in part and not part.startswith("=") for part in parts):
+            return ()
+        layouts.add(tuple(part.split("=", 1)[0] for part in parts))
+    return layouts.pop() if len(layouts) == 1 else ()
 
 
 def find_table(con, text: str) -> str | None:
