@@ -2,7 +2,7 @@
 
 import pytest
 
-from dbmetrics.cli import project
+from dbmetrics import project
 from dbmetrics.cli.params import merge, parse_settings
 from dbmetrics.errors import DbmetricsError
 
@@ -125,3 +125,55 @@ def test_set_refuses_malformed_or_hostile_names(item):
 
     with pytest.raises(click.BadParameter):
         parse_settings((item,))
+
+
+def test_an_unknown_key_is_an_error_naming_the_closest_known_key(tmp_path):
+    """A typo in [params] or [queries.NAME] is refused, never silently ignored."""
+    path = tmp_path / "dbmetrics.toml"
+    for text, message in [
+        (
+            "[params]\nsegmnet_cols = 'region'\n",
+            "[params]: no saved query has a parameter 'segmnet_cols' (did you mean segment_cols?)",
+        ),
+        (
+            "[queries.drift]\nmin_row = 10\n",
+            "[queries.drift]: query 'drift' has no parameter 'min_row' (did you mean min_rows?)",
+        ),
+        (
+            "[queries.drfit]\nz = 3\n",
+            "[queries.drfit]: there is no saved query 'drfit' (did you mean drift?)",
+        ),
+        (
+            "[queries.check]\ntolerence = 0.01\n",
+            "[queries.check]: query 'check' has no parameter 'tolerence' (did you mean tolerance?)",
+        ),
+    ]:
+        path.write_text(text)
+        with pytest.raises(DbmetricsError) as err:
+            merge("rollup", ["logs", "grain"], project.load(path), {})
+        assert str(err.value).startswith(f"{path} {message}")
+    path.write_text("[params]\ntolerance = 0.01\n[queries.check]\nrequire_labels = 'yes'\n")
+    assert merge("rollup", ["logs"], project.load(path), {}) == {}  # known to the check
+
+
+def test_run_query_reads_a_project_file(tmp_path, monkeypatch):
+    """The API takes the project file as the CLI does: [params] < [queries.NAME] < params."""
+    import dbmetrics
+    from dbmetrics.queries import run_query
+
+    queries = tmp_path / "mine"
+    queries.mkdir()
+    (queries / "echo.sql").write_text(
+        "-- name: echo\n-- summary: echo\n-- param grain (text, default week): g\n"
+        "-- param note (text): n\n-- output grain: g\n-- example: dbmetrics run echo\n"
+        "SELECT $grain AS grain, $note AS note\n"
+    )
+    path = tmp_path / "dbmetrics.toml"
+    path.write_text(
+        'query_dirs = ["mine"]\n[params]\ngrain = "day"\n[queries.echo]\nnote = "from file"\n'
+    )
+    con = dbmetrics.connect()
+    got = run_query(con, "echo", {"note": "given"}, project=str(path)).to_pylist()
+    assert got == [{"grain": "day", "note": "given"}]
+    got = run_query(con, "echo", {}, project=project.load(path)).to_pylist()
+    assert got == [{"grain": "day", "note": "from file"}]

@@ -1,14 +1,10 @@
-"""Parquet file sources, file by file: each file's own schema (drift between files) and
-finding the file that makes a scan fail. Only footers are read, except by `unreadable`."""
+"""Parquet file sources, file by file: each file's own schema (drift between files). Only
+footers are read. (Finding the file that makes a scan fail is queries.schema.unreadable.)"""
 
 from collections import defaultdict
 from dataclasses import dataclass
 
-import duckdb
-
-from dbmetrics.queries.schema import Source, first_line, glob_escape
-
-MESSAGE = 200  # characters of DuckDB's message kept
+from dbmetrics.queries.schema import Source
 
 
 @dataclass(frozen=True)
@@ -19,21 +15,6 @@ class Drift:
     role: str | None
     detail: str
     problem: bool
-
-
-def is_parquet(source: Source) -> bool:
-    """Files read by the saved queries' read_parquet (not a table, view or CSV)."""
-    return bool(source.bound) and source.sql.startswith("read_parquet(")
-
-
-def file_list(con, source: Source) -> list:
-    param = next(iter(source.bound))
-    return [
-        row[0]
-        for row in con.execute(
-            f"SELECT file FROM glob(${param}) ORDER BY file", source.bound
-        ).fetchall()
-    ]
 
 
 def schemas(con, source: Source) -> dict:
@@ -99,16 +80,3 @@ def drift(con, source: Source, roles: dict) -> list:
                 )
             )
     return found
-
-
-def unreadable(con, source: Source) -> tuple | None:
-    """(file, error) for the first file whose columns cannot all be decoded, else None."""
-    for file in file_list(con, source):
-        try:
-            con.execute(
-                "SELECT count(COLUMNS(*)) FROM read_parquet(?)", [glob_escape(file)]
-            ).fetchall()
-        except duckdb.Error as exc:  # a decoder's message may quote garbage bytes
-            text = "".join(c for c in first_line(exc) if c.isprintable())
-            return file, text[:MESSAGE] + ("..." if len(text) > MESSAGE else "")
-    return None

@@ -7,7 +7,7 @@ import duckdb
 from dbmetrics.errors import DbmetricsError
 from dbmetrics.queries import notes, score_kind
 from dbmetrics.queries.header import bound_values
-from dbmetrics.queries.schema import first_line, open_source, shadowing
+from dbmetrics.queries.schema import first_line, is_parquet, open_source, shadowing, unreadable
 from dbmetrics.queries.values import split_names
 
 from . import files, sql
@@ -60,7 +60,7 @@ def resolved(con, params: dict) -> Resolved:
 def drift_hint(con, logs: str | None) -> str:
     try:
         source = open_source(con, "logs", str(logs or "").strip())
-        if not files.is_parquet(source):
+        if not is_parquet(source):
             return ""
         found = [d for d in files.drift(con, source, {}) if d.detail.startswith("types")]
     except (DbmetricsError, duckdb.Error):
@@ -71,8 +71,8 @@ def drift_hint(con, logs: str | None) -> str:
 def located(con, r: Resolved, exc: duckdb.Error) -> DbmetricsError:
     """The error, naming the file that cannot be read when there is one."""
     for name, source in (("logs", r.logs), ("labels", r.roles.labels)):
-        if source is not None and files.is_parquet(source):
-            bad = files.unreadable(con, source)
+        if source is not None and is_parquet(source):
+            bad = unreadable(con, source)
             if bad:
                 return DbmetricsError(
                     f"{name}: file `{bad[0]}` cannot be read ({bad[1]}); "
@@ -104,7 +104,7 @@ def assemble(con, r: Resolved, fetch) -> Report:
     if roles.classes:
         issues.append(classes_issue(split_names(roles.classes_text), classes))
     notes, file_stats, drift = [], (), ()
-    if files.is_parquet(r.logs):
+    if is_parquet(r.logs):
         drift = tuple(files.drift(con, r.logs, role_of)) + tuple(
             files.Drift(key, role_of.get(key), shadowing(key), True) for key in r.logs.shadowed
         )

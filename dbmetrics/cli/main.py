@@ -8,7 +8,8 @@ from __future__ import annotations
 import click
 import duckdb
 
-from dbmetrics.cli import check, demo, partials, plot, project, queries, report, run, sql
+from dbmetrics import project
+from dbmetrics.cli import check, demo, partials, plot, queries, report, run, sql
 from dbmetrics.cli.messages import one_line
 from dbmetrics.cli.session import Session, warnings_to_stderr
 from dbmetrics.errors import DbmetricsError

@@ -3,11 +3,14 @@
 from __future__ import annotations
 
 import re
+from pathlib import Path
 
 import click
 
-from dbmetrics.cli.project import Project
-from dbmetrics.errors import DbmetricsError
+from dbmetrics.check import info
+from dbmetrics.project import Project
+from dbmetrics.project import merge as project_merge
+from dbmetrics.queries import list_queries
 
 _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*\Z")
 
@@ -30,15 +33,16 @@ def parse_settings(settings: tuple[str, ...]) -> dict[str, str]:
 
 
 def merge(query: str, declared: list[str], project: Project, cli: dict[str, str]) -> dict[str, str]:
-    """Template defaults < project ``[params]`` < ``[queries.QUERY]`` < ``--set``.
+    """Template defaults < project ``[params]`` < ``[queries.QUERY]`` < ``--set``
+    (dbmetrics.project.merge), every project key checked against the saved queries and the
+    check; the saved queries refuse unknown ``--set`` names."""
+    return project_merge(query, declared, project, cli, known_parameters(project.query_dirs))
 
-    Unknown names in ``[queries.QUERY]`` are refused here, naming the file; the saved queries
-    refuse unknown ``--set`` names.
-    """
-    unknown = [name for name in project.queries.get(query, {}) if name not in declared]
-    if unknown:
-        raise DbmetricsError(
-            f"{project.path} [queries.{query}]: query '{query}' has no parameter '{unknown[0]}'; "
-            f"its parameters are: {', '.join(declared) or '(none)'}"
-        )
-    return {**project.params_for(query, set(declared)), **cli}
+
+def known_parameters(query_dirs) -> dict[str, set[str]]:
+    """query name -> its parameter names: every saved query in the folders that exist (a
+    missing folder is the command's own error), and the check."""
+    dirs = [d for d in query_dirs if Path(d).is_dir()]
+    known = {q.name: {p.name for p in q.params} for q in list_queries(dirs)}
+    known["check"] = {p.name for p in info().params}
+    return known

@@ -18,8 +18,8 @@ import duckdb
 import dbmetrics
 from dbmetrics.cli import progress
 from dbmetrics.cli.messages import one_line
-from dbmetrics.cli.project import Project
 from dbmetrics.errors import DbmetricsError, DbmetricsWarning
+from dbmetrics.project import Project
 
 T = TypeVar("T")
 

@@ -3,7 +3,7 @@
 list_queries(query_dirs=None) -> list[QueryInfo]
 get_query(name, query_dirs=None) -> QueryInfo
 render_query(con, name, params, query_dirs=None) -> (sql, bound)
-run_query(con, name, params, query_dirs=None) -> pyarrow.Table
+run_query(con, name, params, query_dirs=None, project=None) -> pyarrow.Table
 """
 
 from .catalog import get_query, list_queries

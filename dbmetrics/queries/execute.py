@@ -4,23 +4,37 @@ import duckdb
 import pyarrow as pa
 
 from dbmetrics.errors import DbmetricsError, warn
+from dbmetrics.project import merge, open_project
 
 from . import notes, score_kind
+from .catalog import get_query
 from .engine import CLASS_STATE_VIEW, STATE_VIEW
 from .render import rendered
 from .roles import ColumnRoles
-from .schema import first_line, open_source, shadowing
+from .schema import first_line, is_parquet, open_source, shadowing, unreadable
 from .values import split_names
 
 
-def run_query(con: duckdb.DuckDBPyConnection, name: str, params: dict, query_dirs=None) -> pa.Table:
-    """Render `name` with `params` (text values, as from the CLI), execute, fetch as Arrow.
+def run_query(
+    con: duckdb.DuckDBPyConnection, name: str, params: dict, query_dirs=None, project=None
+) -> pa.Table:
+    """Render `name` with `params`, execute, fetch as Arrow.
+
+    params: text as from the CLI, or Python values (a list of names, a date, a number).
+    project: a project file (path) or a dbmetrics.project.Project, as the CLI's --project:
+    its query_dirs are searched too and its [params] / [queries.NAME] fill in what `params`
+    does not give (dbmetrics.project.merge).
 
     STATE is computed first by the numpy engine and read from a registered table, which
     is dropped again afterwards. Scores that do not look like `scores_kind` says give a
     DbmetricsWarning (see score_kind.py), and so does an empty or meaningless result
     (notes.py).
     """
+    if project is not None:
+        settings = open_project(project)
+        query_dirs = [*(query_dirs or []), *settings.query_dirs]
+        declared = [p.name for p in get_query(name, query_dirs).params]
+        params = merge(name, declared, settings, params)
     try:
         r = rendered(con, name, params, query_dirs, materialize=True, inspect=check_scores)
         table = con.sql(r.sql, params=r.bound).to_arrow_table()
@@ -60,11 +74,6 @@ def check_scores(con, roles: ColumnRoles) -> None:
 
 def explain(con, params: dict, exc: duckdb.Error) -> str:
     """DuckDB's first line, and for a Parquet log that cannot be decoded, which file."""
-    from dbmetrics.check.files import (
-        is_parquet,
-        unreadable,
-    )  # the check builds on the saved queries
-
     text = "".join(c for c in first_line(exc) if c.isprintable())
     logs = params.get("logs")
     if logs:

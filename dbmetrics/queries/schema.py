@@ -165,3 +165,34 @@ def described(con, param: str, sql: str, bound: dict, text: str) -> Source:
 
 def first_line(exc: Exception) -> str:
     return str(exc).strip().splitlines()[0]
+
+
+MESSAGE = 200  # characters of DuckDB's message kept
+
+
+def is_parquet(source: Source) -> bool:
+    """Files read by the saved queries' read_parquet (not a table, view or CSV)."""
+    return bool(source.bound) and source.sql.startswith("read_parquet(")
+
+
+def file_list(con, source: Source) -> list:
+    param = next(iter(source.bound))
+    return [
+        row[0]
+        for row in con.execute(
+            f"SELECT file FROM glob(${param}) ORDER BY file", source.bound
+        ).fetchall()
+    ]
+
+
+def unreadable(con, source: Source) -> tuple | None:
+    """(file, error) for the first file whose columns cannot all be decoded, else None."""
+    for file in file_list(con, source):
+        try:
+            con.execute(
+                "SELECT count(COLUMNS(*)) FROM read_parquet(?)", [glob_escape(file)]
+            ).fetchall()
+        except duckdb.Error as exc:  # a decoder's message may quote garbage bytes
+            text = "".join(c for c in first_line(exc) if c.isprintable())
+            return file, text[:MESSAGE] + ("..." if len(text) > MESSAGE else "")
+    return None

@@ -16,10 +16,16 @@ Format::
 
 Parameter values are passed as written: relative paths in them resolve against the
 current directory, like every path given to DuckDB.
+
+Precedence (`merge`): a query's defaults < ``[params]`` < ``[queries.NAME]`` < the values
+given (``--set``, or ``run_query``'s params). A key of ``[params]`` that no saved query
+declares, a ``[queries.NAME]`` for no saved query, or a key that query does not declare, is
+an error naming the closest known one.
 """
 
 from __future__ import annotations
 
+import difflib
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -47,6 +53,68 @@ class Project:
         merged = {k: v for k, v in self.params.items() if k in declared}
         merged.update(self.queries.get(name, {}))
         return merged
+
+
+def open_project(project) -> Project:
+    """A Project from a Project, a path to a project file, or None (an empty project)."""
+    if project is None or isinstance(project, Project):
+        return project or Project()
+    return load(find(str(project)))
+
+
+def merge(
+    query: str, declared: list[str], project: Project, given: dict, known: dict | None = None
+) -> dict:
+    """Defaults < project ``[params]`` < ``[queries.QUERY]`` < ``given``; unknown keys refused.
+
+    ``[queries.QUERY]`` keys are checked against ``declared``; with ``known`` (query name ->
+    its parameter names, e.g. every saved query and the check) every ``[params]`` key and
+    every ``[queries.NAME]`` table too. The query's own defaults are left to it.
+    """
+    unknown = [name for name in project.queries.get(query, {}) if name not in declared]
+    if unknown:
+        raise DbmetricsError(
+            f"{project.path} [queries.{query}]: query '{query}' has no parameter '{unknown[0]}'"
+            f"{closest(unknown[0], declared)}; "
+            f"its parameters are: {', '.join(declared) or '(none)'}"
+        )
+    if known is not None:
+        check_keys(project, known)
+    return {**project.params_for(query, set(declared)), **given}
+
+
+def check_keys(project: Project, known: dict) -> None:
+    """Every ``[params]`` key and ``[queries.NAME]`` names something a query in ``known``
+    declares."""
+    every = sorted(set().union(*known.values()))
+    for key in project.params:
+        if key not in every:
+            raise DbmetricsError(
+                f"{project.path} [params]: no saved query has a parameter '{key}'"
+                f"{closest(key, every)}"
+            )
+    for name, table in project.queries.items():
+        if name not in known:
+            raise DbmetricsError(
+                f"{project.path} [queries.{name}]: there is no saved query '{name}'"
+                f"{closest(name, list(known))}; queries are: {', '.join(sorted(known))}"
+            )
+        wrong = [k for k in table if k not in known[name]]
+        if wrong:
+            raise DbmetricsError(
+                f"{project.path} [queries.{name}]: query '{name}' has no parameter "
+                f"'{wrong[0]}'{closest(wrong[0], sorted(known[name]))}"
+            )
+
+
+def closest(word: str, choices: list[str]) -> str:
+    """`; did you mean X?` for the closest choice, or empty.
+
+    >>> closest("segmnet_cols", ["segment_cols", "logs"])
+    ' (did you mean segment_cols?)'
+    """
+    found = difflib.get_close_matches(word, choices, n=1, cutoff=0.6)
+    return f" (did you mean {found[0]}?)" if found else ""
 
 
 def find(explicit: str | None) -> Path | None:
