@@ -8,6 +8,7 @@ is refused, naming the parameter and both values.
 """
 
 from dbmetrics.errors import DbmetricsError
+from dbmetrics.queries.roles import key_fragments
 from dbmetrics.queries.schema import quote
 from dbmetrics.queries.values import split_names
 
@@ -75,13 +76,7 @@ def store_fragments(texts: dict, given: dict | None = None) -> tuple:
         )
     keys = ", ".join(quote(c) for c in (version, *segments))
     fragments = {
-        "version_col": quote(version),
-        "segment_cols": ", ".join(quote(c) for c in segments),
-        "segments": "".join(f", {quote(c)}" for c in segments),
-        "segment_match": " AND ".join(
-            f"cur.{quote(c)} IS NOT DISTINCT FROM ref.{quote(c)}" for c in segments
-        )
-        or "true",
+        **key_fragments(version, segments),
         "predictions": UNAVAILABLE,
     }
     bound = {}

@@ -221,6 +221,24 @@ def all_found(texts: dict, logs: Source, labels: Source | None) -> None:
         )
 
 
+def key_fragments(version: str, segments) -> dict:
+    """The key placeholders of a query body, from the version and segment columns (own
+    spellings), for logs and partials stores alike: version_col (quoted), segment_cols
+    (`"a", "b"`), segments (comma-led, empty without segments) and segment_match
+    (`cur."a" IS NOT DISTINCT FROM ref."a" AND ...`; `true` without segments).
+
+    >>> key_fragments("v", ["a"])["segment_match"]
+    'cur."a" IS NOT DISTINCT FROM ref."a"'
+    """
+    match = " AND ".join(f"cur.{quote(c)} IS NOT DISTINCT FROM ref.{quote(c)}" for c in segments)
+    return {
+        "version_col": quote(version),
+        "segment_cols": ", ".join(quote(c) for c in segments),
+        "segments": "".join(f", {quote(c)}" for c in segments),
+        "segment_match": match or "true",
+    }
+
+
 def is_key(kind: str) -> bool:
     """Text or a whole number: a type that can name a version, a segment or a class."""
     return not kind.endswith("]") and kind.startswith(("VARCHAR", *INTEGER_TYPES))

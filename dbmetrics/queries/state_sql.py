@@ -23,7 +23,7 @@ rows. Every sum is a Kahan sum (fsum) and 0 when empty, so states add across day
 
 import textwrap
 
-from .roles import KINDS, ColumnRoles, class_index, day, day_start
+from .roles import KINDS, ColumnRoles, class_index, day, day_start, key_fragments
 from .schema import quote
 
 STATE_COLUMNS = (
@@ -164,22 +164,16 @@ def fragments(roles: ColumnRoles) -> dict:
     ref."seg" AND ...` (aliases cur and ref; `true` without segments); and each column-role
     column parameter, quoted.
     """
-    match = " AND ".join(
-        f"cur.{quote(c)} IS NOT DISTINCT FROM ref.{quote(c)}" for c in roles.segments
-    )
     columns = {
         "time_col": roles.time,
         "scores_col": roles.scores,
-        "version_col": roles.version,
         "label_col": roles.label,
         "id_col": roles.id,
     }
     return {
         **{name: quote(col) for name, col in columns.items() if col is not None},
-        "segment_cols": ", ".join(quote(c) for c in roles.segments),
+        **key_fragments(roles.version, roles.segments),
         "state": textwrap.indent(state(roles), "    ").lstrip(),
         "class_state": textwrap.indent(class_state(roles), "    ").lstrip(),
         "predictions": textwrap.indent(predictions(roles), "    ").lstrip(),
-        "segments": "".join(f", {quote(c)}" for c in roles.segments),
-        "segment_match": match or "true",
     }
