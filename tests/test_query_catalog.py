@@ -191,3 +191,41 @@ def test_header_example_runs_on_the_demo_logs(query, monkeypatch):
     )
     params = dict(w.split("=", 1) for w in words[4::2])
     assert run_query(dbmetrics.connect(), query, params).num_rows > 0
+
+
+INCLUDING = """\
+-- name: {name}
+-- summary: Rows per version, the column roles included.
+-- include: column_roles
+-- param segment_cols (columns): narrowed here
+-- param min_rows (integer, default 0): keep versions with at least this many rows
+-- output rows: rows
+-- example: dbmetrics run {name} --set logs=logs/
+SELECT {{{{version_col}}}}, sum(rows)::BIGINT AS rows
+FROM ({{{{state}}}})
+GROUP BY ALL
+HAVING sum(rows) >= $min_rows
+"""
+
+
+def test_include_column_roles_declares_them_once(tmp_path, logs):
+    """`-- include: column_roles` stands for the shared definitions (role_params.py); a
+    parameter the query declares itself replaces the included one, in its own place."""
+    from dbmetrics.queries.header import column_role_params
+
+    folder = write(tmp_path / "mine", "included", INCLUDING.format(name="included"))
+    info = get_query("included", [folder])
+    shared = {p.name: p for p in column_role_params()}
+    names = [p.name for p in info.params]
+    assert set(COLUMN_MAP) <= set(names) and names.count("segment_cols") == 1
+    assert info.param("segment_cols").help == "narrowed here"
+    assert info.param("timezone") == shared["timezone"] == get_query("rollup").param("timezone")
+    con = dbmetrics.connect()
+    out = run_query(con, "included", {"logs": logs, "timezone": "Asia/Tokyo"}, [folder])
+    assert out.to_pylist() == [
+        {"model_version": "v1", "rows": 2},
+        {"model_version": "v2", "rows": 1},
+    ]
+    write(folder, "wrong", INCLUDING.format(name="wrong").replace("column_roles", "roles"))
+    with pytest.raises(DbmetricsError, match="`-- include: roles` names no parameter set"):
+        get_query("wrong", [folder])
