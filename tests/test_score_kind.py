@@ -13,7 +13,7 @@ import dbmetrics
 from dbmetrics import DbmetricsWarning
 from dbmetrics.check import check_log
 from dbmetrics.cli.main import cli
-from dbmetrics.queries import run_query
+from dbmetrics.queries import notes, run_query
 
 N, K = 300, 4
 
@@ -68,8 +68,11 @@ def kind_warnings(con, logs, kind):
     ],
 )
 def test_a_contradicted_kind_warns_naming_the_likely_kind(con, logs, log, kind, likely):
-    (message,) = kind_warnings(con, logs[log], kind)
+    found = kind_warnings(con, logs[log], kind)
+    (message,) = [m for m in found if m.startswith("scores_kind=")]
     assert message.startswith(f"scores_kind={kind}, but ") and likely in message
+    # every row is then invalid: that is said too
+    assert found[1:] == ([notes.no_usable_scores(N)] if kind == "probs" else [])
 
 
 @pytest.mark.parametrize("log", ["logits", "probs", "binary_logit", "binary_prob"])
