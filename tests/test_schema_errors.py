@@ -78,6 +78,7 @@ def test_ids_typed_text_in_the_logs_and_numbers_in_the_labels(con, foreign, tmp_
     )
 
 
+@pytest.mark.filterwarnings("ignore:drift. the reference window")  # an empty window, on purpose
 def test_python_values_lists_dates_and_numbers(con, foreign):
     params = {
         "logs": foreign,
