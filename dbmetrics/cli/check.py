@@ -8,7 +8,8 @@ import sys
 import click
 import pyarrow as pa
 
-from dbmetrics.cli.output import atomic_write, choose_format
+from dbmetrics.atomic import write_output
+from dbmetrics.cli.output import choose_format
 from dbmetrics.cli.params import merge, parse_settings
 from dbmetrics.cli.textable import render
 from dbmetrics.errors import DbmetricsError
@@ -68,7 +69,7 @@ def command(ctx, settings, fmt, output):
     report = session.execute(lambda con: check.check_log(con, params))
     data = (as_json(report) if fmt == "json" else as_text(report)).encode()
     if output:
-        atomic_write(output, lambda f: f.write(data))
+        write_output(output, lambda f: f.write(data))
         session.note(f"wrote the report to {output}: {summary(report)}")
     else:
         sys.stdout.buffer.write(data)

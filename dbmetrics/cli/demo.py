@@ -37,7 +37,7 @@ def command(session, out_dir, rows_per_day, weeks, seed, force):
       dbmetrics demo demo_try --weeks 8 --seed 7
     """
     from dbmetrics import demo
-    from dbmetrics.cli.output import atomic_write
+    from dbmetrics.atomic import atomic_write
 
     target = Path(out_dir)
     if target.exists() and not target.is_dir():

@@ -1,4 +1,4 @@
-"""Result formats and atomic file writing.
+"""Result formats (files are written by dbmetrics.atomic.write_output).
 
 Formats: ``table`` (aligned text), ``markdown``, ``csv`` (pyarrow.csv), ``json`` and ``parquet``.
 JSON is one array of records. JSON has no NaN or infinity, so they are written as the strings
@@ -14,9 +14,6 @@ import decimal
 import io
 import json
 import math
-import os
-import tempfile
-from collections.abc import Callable
 from pathlib import Path
 from typing import BinaryIO
 
@@ -59,45 +56,6 @@ def encode(table: pa.Table, fmt: str, out: BinaryIO) -> None:
         raise DbmetricsError(
             f"--format {fmt}: cannot write this result: {e}; try --format json or parquet"
         ) from None
-
-
-def atomic_write(path: str, write: Callable[[BinaryIO], None]) -> None:
-    """Write through ``write`` to a temp file beside ``path``, fsync it, then rename over ``path``.
-
-    A failure or interrupt leaves ``path`` as it was and removes the temp file.
-    """
-    target = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
-    try:
-        with os.fdopen(fd, "wb") as f:
-            write(f)
-            f.flush()
-            os.fsync(f.fileno())
-        os.chmod(tmp, 0o666 & ~_umask())
-        os.replace(tmp, target)
-    except BaseException:
-        os.unlink(tmp)
-        raise
-    _fsync_dir(target.parent)
-
-
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
-
-
-def _fsync_dir(folder: Path) -> None:
-    try:
-        fd = os.open(folder, os.O_RDONLY)
-    except OSError:  # not possible on every platform; the rename is done
-        return
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)
 
 
 def _table(table: pa.Table, out: BinaryIO) -> None:

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import click
 
-from dbmetrics.cli.output import atomic_write
+from dbmetrics.atomic import write_output
 from dbmetrics.cli.params import merge, parse_settings
 
 
@@ -227,5 +227,5 @@ def _write(session, figure, output: str) -> None:
     from dbmetrics import plots
 
     data = plots.png_bytes(figure)
-    atomic_write(output, lambda f: f.write(data))
+    write_output(output, lambda f: f.write(data))
     session.info(f"wrote {plots.WIDTH}x{plots.HEIGHT} PNG to {output}")

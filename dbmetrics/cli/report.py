@@ -11,7 +11,7 @@ from pathlib import Path
 
 import click
 
-from dbmetrics.cli.output import atomic_write
+from dbmetrics.atomic import write_output
 from dbmetrics.cli.params import merge, parse_settings
 from dbmetrics.errors import DbmetricsError
 
@@ -130,5 +130,5 @@ def command(session, settings, start, end, latest, segment, measure, title, outp
         )
     )
     data = html.encode("utf-8")
-    atomic_write(output, lambda f: f.write(data))
+    write_output(output, lambda f: f.write(data))
     session.note(f"wrote the report to {output} ({len(data) // 1024} KiB)")

@@ -12,7 +12,8 @@ import click
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from dbmetrics.cli.output import FORMATS, atomic_write, choose_format, encode
+from dbmetrics.atomic import write_output
+from dbmetrics.cli.output import FORMATS, choose_format, encode
 from dbmetrics.cli.session import Session
 from dbmetrics.cli.textable import markdown, result_table, safe
 from dbmetrics.errors import DbmetricsError
@@ -81,14 +82,14 @@ def emit(
     if fmt in ("table", "markdown"):
         data = _readable(session, table, fmt, output, pick, all_columns, key)
         if output:
-            atomic_write(output, lambda f: f.write(data))
+            write_output(output, lambda f: f.write(data))
             session.info(f"wrote {table.num_rows} rows to {output} ({fmt})")
         else:
             sys.stdout.flush()
             sys.stdout.buffer.write(data)
             sys.stdout.buffer.flush()
     elif output:
-        atomic_write(output, lambda f: encode(table, fmt, f))
+        write_output(output, lambda f: encode(table, fmt, f))
         session.info(f"wrote {table.num_rows} rows to {output} ({fmt})")
     elif fmt == "parquet":
         raise DbmetricsError("--format parquet: binary output needs --output PATH")

@@ -1,26 +1,15 @@
 """Atomic file writers: each file appears complete under its name, or not at all."""
 
 import csv
-import os
 from contextlib import contextmanager
 from pathlib import Path
 
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from dbmetrics.atomic import atomic_path
+
 ROW_GROUP_ROWS = 1 << 17
-
-
-@contextmanager
-def atomic_path(path: Path):
-    """Yield a temporary path beside ``path``; on success move it onto ``path``, else delete it."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    try:
-        yield tmp
-        os.replace(tmp, path)
-    finally:
-        tmp.unlink(missing_ok=True)
 
 
 @contextmanager
@@ -41,6 +30,7 @@ def parquet_sink(path: Path, schema: pa.Schema):
         if sum(t.num_rows for t in pending) >= ROW_GROUP_ROWS:
             flush()
 
+    path.parent.mkdir(parents=True, exist_ok=True)
     with atomic_path(path) as tmp, pq.ParquetWriter(tmp, schema, compression="zstd") as writer:
         yield write
         flush()
@@ -48,5 +38,6 @@ def parquet_sink(path: Path, schema: pa.Schema):
 
 def write_csv(path: Path, rows) -> None:
     """Write ``rows`` (header first) as a CSV file, atomically."""
+    path.parent.mkdir(parents=True, exist_ok=True)
     with atomic_path(path) as tmp, open(tmp, "w", newline="") as f:
         csv.writer(f).writerows(rows)
