@@ -9,7 +9,7 @@ import pytest
 
 import dbmetrics
 from dbmetrics import DbmetricsError
-from dbmetrics.queries import get_query, list_queries, render_query, run_query
+from dbmetrics.queries import get_query, list_queries, render_query, run_query, scan_queries
 from dbmetrics.queries.catalog import BUILT_IN
 from dbmetrics.queries.header import COLUMN_MAP
 
@@ -131,8 +131,9 @@ def test_missing_folder_is_an_error(tmp_path):
             "placeholder {{region}} is neither a declared source/column parameter",
         ),
         (
-            ("-- param bins (integer(1..1000), default 15): bins\n", ""),
-            "{{state}} needs the column-role parameters declared; missing: bins",
+            ("-- param bins (integer(1..1000), default 15): bins", "-- param bins (text): bins"),
+            "parameter `bins` is a column role and must have type integer(1..1000) (as in "
+            "rollup); got `text`",
         ),
         (
             ("-- example: dbmetrics run bad --set logs=logs/\n", ""),
@@ -153,9 +154,13 @@ def test_missing_folder_is_an_error(tmp_path):
 )
 def test_malformed_user_queries_are_rejected(tmp_path, change, message):
     text = USER_QUERY.format(name="bad").replace(*change)
+    dirs = [write(write(tmp_path / "mine", "bad", text), "good")]
     with pytest.raises(DbmetricsError) as err:
-        list_queries([write(tmp_path / "mine", "bad", text)])
+        get_query("bad", dirs)
     assert message in str(err.value) and "bad.sql" in str(err.value)
+    queries, broken = scan_queries(dirs)
+    assert "good" in {q.name for q in queries} and "bad" not in {q.name for q in queries}
+    assert [(b.path.name, b.problem) for b in broken] == [("bad.sql", str(err.value))]
 
 
 def test_continuation_lines_extend_an_entry(tmp_path):

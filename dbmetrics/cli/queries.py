@@ -14,6 +14,8 @@ from dbmetrics.cli.textable import render
 def command(session, name):
     """List the saved queries (ours and your folders), or describe the query NAME.
 
+    A file of yours that cannot be used is named on stderr with its problem.
+
     \b
     Example:
       dbmetrics queries && dbmetrics queries rollup
@@ -22,7 +24,7 @@ def command(session, name):
 
     dirs = session.query_dirs
     if name is None:
-        found = queries.list_queries(query_dirs=dirs)
+        found, broken = queries.scan_queries(query_dirs=dirs)
         listing = pa.table(
             {
                 "query": [q.name for q in found],
@@ -31,6 +33,8 @@ def command(session, name):
             }
         )
         click.echo(render(listing, count=False, width=None), nl=False)
+        for bad in broken:
+            click.echo(f"not listed: {bad.problem}", err=True)
         return
     click.echo(_describe(queries.get_query(name, query_dirs=dirs)), nl=False)
 

@@ -44,7 +44,8 @@ FRAGMENTS = (
     "segment_match",
 )  # see state_sql.fragments
 
-PARAM = re.compile(r"param\s+([a-z_][a-z0-9_]*)\s*\(([^()]*(?:\([^()]*\))?[^()]*)\)\s*:\s*(.+)")
+PARAM_NAME = re.compile(r"param\s+([a-z_][a-z0-9_]*)\s*\(")
+MEANING = re.compile(r"\s*:\s*(.+)")
 KEYED = re.compile(
     r"(name|summary|example|note|show|include|output\s+[A-Za-z_][A-Za-z0-9_]*)\s*:\s*(.*)"
 )
@@ -55,7 +56,9 @@ RANGE = re.compile(r"(-?[0-9.]+)?\.\.(-?[0-9.]+)?")
 NAME = re.compile(r"[a-z][a-z0-9_]*")
 SPEC = re.compile(r"(\w+\([^()]*\)|[^,]*)\s*(?:,(.*))?")
 BOUND = re.compile(r"\$([A-Za-z_][A-Za-z0-9_]*)")
-PLACEHOLDER = re.compile(r"\{\{\s*([^{}]*?)\s*\}\}")
+# `{{ name }}` -> name. The lookahead checks a closing `}}` first and the name is words split by
+# single whitespace runs, so no span is tried twice: linear even on long whitespace runs.
+PLACEHOLDER = re.compile(r"\{\{(?=[^{}]*\}\})\s*((?:[^{}\s]+(?:\s+[^{}\s]+)*)?)\s*\}\}")
 LITERALS = re.compile(r'"(?:[^"]|"")*"|\'(?:[^\']|\'\')*\'|--[^\n]*')  # and comments
 
 
@@ -183,38 +186,39 @@ def with_included(params: list) -> list:
 
 def header_entries(header: list, path: Path) -> list:
     """(key, value) per header entry; indented lines continue the entry above."""
-    entries = []
+    entries = []  # (key, [value, continuation, ...]): joined once at the end
     for line in header:
         text = line[2:]
         if not text.strip():
             continue
         if text.startswith("   ") and entries:
-            key, value = entries[-1]
-            entries[-1] = (key, f"{value} {text.strip()}")
+            entries[-1][1].append(text.strip())
             continue
         text = text.strip()
         if text.startswith("param "):
-            entries.append((text, ""))
+            entries.append((text, [""]))
             continue
         match = KEYED.fullmatch(text)
         if not match:
+            shown = line if len(line) <= 200 else f"{line[:200]}..."
             raise DbmetricsError(
-                f"{path}: header line `{line}` is not one of name:, summary:, "
+                f"{path}: header line `{shown}` is not one of name:, summary:, "
                 "param NAME (TYPE...): , output NAME:, note:, show:, example:"
             )
-        entries.append((" ".join(match.group(1).split()), match.group(2).strip()))
-    return entries
+        entries.append((" ".join(match.group(1).split()), [match.group(2).strip()]))
+    return [(key, " ".join(parts)) for key, parts in entries]
 
 
 def parse_param(text: str, path: Path) -> Param:
     """`NAME (TYPE[, default VALUE | required]): meaning` -> Param."""
-    match = PARAM.fullmatch(text.strip())
-    if not match:
+    parts = split_param(text.strip())
+    if parts is None:
+        shown = text if len(text) <= 200 else f"{text[:200]}..."
         raise DbmetricsError(
-            f"{path}: cannot read `-- {text}`; expected "
+            f"{path}: cannot read `-- {shown}`; expected "
             "`-- param NAME (TYPE[, default VALUE | required]): meaning`"
         )
-    name, spec, meaning = match.groups()
+    name, spec, meaning = parts
     type_text, rest = (part.strip() for part in SPEC.fullmatch(spec.strip()).groups(""))
     kind, arg = TYPE.fullmatch(type_text).groups() if TYPE.fullmatch(type_text) else (None, None)
     parsers = {
@@ -274,6 +278,29 @@ def check_show(info: QueryInfo) -> None:
             f"{info.path}: `-- show:` names {', '.join(unknown)}, which is neither an "
             "`-- output` column nor a column parameter"
         )
+
+
+def split_param(text: str) -> tuple | None:
+    """(name, spec, meaning) of `param NAME (SPEC): meaning`, where SPEC holds at most one
+    parenthesised group; None if `text` is not so shaped. One pass over the text (a regular
+    expression with two starred spans around the group backtracks quadratically)."""
+    match = PARAM_NAME.match(text)
+    if not match:
+        return None
+    depth, groups, i = 1, 0, match.end()
+    while depth and i < len(text):
+        char = text[i]
+        if char == "(":
+            depth, groups = depth + 1, groups + 1
+            if depth > 2 or groups > 1:
+                return None
+        elif char == ")":
+            depth -= 1
+        i += 1
+    meaning = MEANING.fullmatch(text, i)
+    if depth or not meaning:
+        return None
+    return match.group(1), text[match.end() : i - 1], meaning.group(1)
 
 
 def check_body(info: QueryInfo) -> None:
