@@ -34,6 +34,7 @@ from dbmetrics.errors import DbmetricsError
 
 FILE_NAME = "dbmetrics.toml"
 _SETTINGS = {"database", "query_dirs", "memory_limit", "threads", "params", "queries"}
+MAX_THREADS = 1024  # DuckDB starts every thread at connect: 100000 took half a minute, then hung
 
 
 @dataclass(frozen=True)
@@ -174,6 +175,8 @@ def _parse(path: Path) -> dict:
             return tomllib.load(f)
     except tomllib.TOMLDecodeError as e:
         raise DbmetricsError(f"{path}: not valid TOML: {e}") from None
+    except RecursionError:  # the parser recurses once per level of [ or {
+        raise DbmetricsError(f"{path}: not valid TOML: values nested too deeply") from None
 
 
 def _table(data: dict, key: str, path: Path) -> dict:
@@ -207,8 +210,10 @@ def _path_value(value, base: Path, key: str, path: Path) -> str | None:
 def _threads(value, path: Path) -> int | None:
     if value is None:
         return None
-    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
-        raise DbmetricsError(f"{path}: 'threads' must be a positive integer, got {value!r}")
+    if isinstance(value, bool) or not isinstance(value, int) or not 1 <= value <= MAX_THREADS:
+        raise DbmetricsError(
+            f"{path}: 'threads' must be a positive integer up to {MAX_THREADS}, got {value!r}"
+        )
     return value
 
 

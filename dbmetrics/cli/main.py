@@ -47,7 +47,11 @@ class Group(click.Group):
     help="DuckDB database file to open, kept between runs [env DBMETRICS_DATABASE; default in memory].",
 )
 @click.option("--memory-limit", metavar="SIZE", help="DuckDB memory limit, e.g. 4GB.")
-@click.option("--threads", type=click.IntRange(min=1), help="DuckDB worker threads.")
+@click.option(
+    "--threads",
+    type=click.IntRange(min=1, max=project.MAX_THREADS),
+    help=f"DuckDB worker threads (1 to {project.MAX_THREADS}).",
+)
 @click.option("--quiet", "-q", is_flag=True, help="No progress and no notes on stderr.")
 @click.option(
     "--verbose", "-v", is_flag=True, help="Notes on stderr and full tracebacks on errors."
