@@ -5,20 +5,40 @@ Each command is a module of this package exposing ``command``; add it to the tup
 
 from __future__ import annotations
 
+import sys
+
 import click
 import duckdb
 
+import dbmetrics
 from dbmetrics import project
 from dbmetrics.cli import check, demo, partials, plot, queries, report, run, sql
+from dbmetrics.cli.__main__ import EXIT_INTERRUPTED, interrupted
 from dbmetrics.cli.messages import one_line
 from dbmetrics.cli.session import Session, warnings_to_stderr
 from dbmetrics.errors import DbmetricsError
 
-EXIT_INTERRUPTED = 130
-
 
 class Group(click.Group):
-    """Turns user-facing errors into one line on stderr (a traceback only with --verbose)."""
+    """Turns user-facing errors into one line on stderr (a traceback only with --verbose), and
+    Ctrl-C at any moment (parsing, running, cleaning up) into status 130 and one line."""
+
+    def main(self, *args, standalone_mode: bool = True, **kwargs):
+        if not standalone_mode:
+            return super().main(*args, standalone_mode=False, **kwargs)
+        try:
+            status = super().main(*args, standalone_mode=False, **kwargs)
+        except click.exceptions.Abort as e:
+            if isinstance(e.__cause__, KeyboardInterrupt):
+                interrupted()
+            click.echo("Aborted!", err=True)
+            sys.exit(1)
+        except click.ClickException as e:
+            e.show()
+            sys.exit(e.exit_code)
+        except KeyboardInterrupt:
+            interrupted()
+        sys.exit(status if isinstance(status, int) else 0)
 
     def invoke(self, ctx: click.Context):
         try:
@@ -33,6 +53,13 @@ class Group(click.Group):
 
 
 @click.group(cls=Group, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(
+    dbmetrics.__version__,
+    "--version",
+    package_name="dbmetrics",
+    message="dbmetrics %(version)s",
+    help="Show the version and exit.",
+)
 @click.option(
     "--project",
     "project_file",

@@ -117,7 +117,7 @@ def show_command(ctx, store):
     ctx.exit(
         emit(
             ctx.obj,
-            pa.Table.from_pylist([{k: str(v) for k, v in summary.items()}]),
+            pa.Table.from_pylist([{k: None if v is None else str(v) for k, v in summary.items()}]),
             None,
             None,
             None,

@@ -5,6 +5,7 @@ from __future__ import annotations
 import sys
 
 import click
+import duckdb
 import pyarrow as pa
 
 from dbmetrics.cli.results import emit, output_options
@@ -34,10 +35,26 @@ def command(ctx, query, sql_file, fmt, output, flag_column, pick, all_columns):
     session = ctx.obj
     session.info(query)
     table = session.execute(lambda con: _fetch(con, query))
+    if table is None:
+        if output:
+            session.note(f"the last statement returns no rows; {output} not written")
+        ctx.exit(0)
     ctx.exit(emit(session, table, fmt, output, flag_column, pick, all_columns))
 
 
-def _fetch(con, query: str) -> pa.Table:
-    """Run every statement; the last one's rows (an empty table when it returns none)."""
+def _fetch(con, query: str) -> pa.Table | None:
+    """Run every statement; the last one's rows, or None when it is a statement that returns
+    none (CREATE, DROP, SET, ...: DuckDB answers those with an empty `Count` or `Success`
+    table, which is not a result). INSERT, UPDATE and DELETE keep their row count."""
     relation = con.sql(query)
-    return pa.table({}) if relation is None else relation.to_arrow_table()
+    if relation is None:
+        return None
+    table = relation.to_arrow_table()
+    statements = duckdb.extract_statements(query)
+    if (
+        table.num_rows == 0
+        and statements
+        and duckdb.ExpectedResultType.NOTHING in statements[-1].expected_result_type
+    ):
+        return None
+    return table
