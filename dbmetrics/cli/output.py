@@ -14,10 +14,12 @@ import decimal
 import io
 import json
 import math
+import re
 from pathlib import Path
 from typing import BinaryIO
 
 import pyarrow as pa
+import pyarrow.compute as pc
 
 from dbmetrics.cli.textable import markdown, render
 from dbmetrics.errors import DbmetricsError
@@ -48,14 +50,53 @@ def choose_format(fmt: str | None, output: str | None) -> str:
     return SUFFIXES[suffix]
 
 
-def encode(table: pa.Table, fmt: str, out: BinaryIO) -> None:
-    """Write ``table`` to the binary stream ``out`` in format ``fmt``."""
+def encode(table: pa.Table, fmt: str, out: BinaryIO, formulas: bool = False) -> None:
+    """Write ``table`` to the binary stream ``out`` in format ``fmt``.
+
+    formulas: for csv, keep text cells that a spreadsheet would run as formulas as they are
+    (default: neutralised, see ``neutralise_formulas``).
+    """
+    if fmt == "csv" and not formulas:
+        table = neutralise_formulas(table)
     try:
         _WRITERS[fmt](table, out)
     except (pa.ArrowNotImplementedError, pa.ArrowInvalid) as e:
         raise DbmetricsError(
             f"--format {fmt}: cannot write this result: {e}; try --format json or parquet"
         ) from None
+
+
+FORMULA_START = "=+-@\t\r"
+_FORMULA = "^[=+\\-@\t\r]"
+_NUMBER = "[+-]?(?:[0-9]+\\.?[0-9]*|\\.[0-9]+)(?:[eE][+-]?[0-9]+)?"
+
+
+def neutralise_formulas(table: pa.Table) -> pa.Table:
+    """Text cells (and column names) that start with ``= + - @``, a tab or a carriage return get a
+    leading ``'``, so a spreadsheet opening the CSV shows them as text instead of running them as
+    formulas (the OWASP "CSV injection" advice). A text cell that is just a signed number, such
+    as ``-1.5``, cannot run anything and is left alone; numeric columns are never touched.
+
+    >>> t = neutralise_formulas(pa.table({"seg": ["=1+2", "-1.5", "a", None], "x": [-1, 2, 3, 4]}))
+    >>> t.to_pydict()
+    {'seg': ["'=1+2", '-1.5', 'a', None], 'x': [-1, 2, 3, 4]}
+    """
+    columns = []
+    for column in table.columns:
+        kind = column.type.value_type if pa.types.is_dictionary(column.type) else column.type
+        if pa.types.is_string(kind) or pa.types.is_large_string(kind):
+            text = column.cast(kind) if kind is not column.type else column
+            risky = pc.and_(
+                pc.match_substring_regex(text, _FORMULA),
+                pc.invert(pc.match_substring_regex(text, f"^{_NUMBER}$")),
+            )
+            column = pc.if_else(risky, pc.binary_join_element_wise("'", text, ""), text)
+        columns.append(column)
+    names = [
+        f"'{n}" if n[:1] and n[0] in FORMULA_START and not re.fullmatch(_NUMBER, n) else n
+        for n in table.column_names
+    ]
+    return pa.table(columns, names=names)
 
 
 def _table(table: pa.Table, out: BinaryIO) -> None:

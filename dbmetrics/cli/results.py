@@ -19,10 +19,20 @@ from dbmetrics.cli.textable import markdown, result_table, safe
 from dbmetrics.errors import DbmetricsError
 
 EXIT_FLAGGED = 3
+CSV_FORMULAS = "dbmetrics.csv_formulas"  # ctx.meta key set by --csv-formulas
 
 
 def output_options(command):
-    """``--format``, ``--output``, ``--fail-on-flag``, ``--columns`` and ``--all-columns``."""
+    """``--format``, ``--output``, ``--fail-on-flag``, ``--columns``, ``--all-columns`` and
+    ``--csv-formulas``."""
+    command = click.option(
+        "--csv-formulas",
+        is_flag=True,
+        expose_value=False,
+        callback=lambda ctx, _, value: ctx.meta.__setitem__(CSV_FORMULAS, value),
+        help="CSV: keep text cells that start with = + - @ as they are. By default they get a "
+        "leading ' so a spreadsheet shows them instead of running them as formulas.",
+    )(command)
     command = click.option(
         "--all-columns",
         is_flag=True,
@@ -79,6 +89,8 @@ def emit(
     """
     fmt = choose_format(fmt, output)
     flagged = flagged_rows(table, flag_column) if flag_column else 0
+    ctx = click.get_current_context(silent=True)
+    formulas = bool(ctx and ctx.meta.get(CSV_FORMULAS))
     if fmt in ("table", "markdown"):
         data = _readable(session, table, fmt, output, pick, all_columns, key)
         if output:
@@ -89,13 +101,13 @@ def emit(
             sys.stdout.buffer.write(data)
             sys.stdout.buffer.flush()
     elif output:
-        write_output(output, lambda f: encode(table, fmt, f))
+        write_output(output, lambda f: encode(table, fmt, f, formulas))
         session.info(f"wrote {table.num_rows} rows to {output} ({fmt})")
     elif fmt == "parquet":
         raise DbmetricsError("--format parquet: binary output needs --output PATH")
     else:
         sys.stdout.flush()
-        encode(table, fmt, sys.stdout.buffer)
+        encode(table, fmt, sys.stdout.buffer, formulas)
         sys.stdout.buffer.flush()
     missing = _unmatched(table)
     if missing:
