@@ -44,6 +44,7 @@ INTEGER_TYPES = (
 )
 FRACTIONAL_TYPES = ("FLOAT", "DOUBLE", "DECIMAL", "REAL")
 NUMERIC_TYPES = INTEGER_TYPES + FRACTIONAL_TYPES
+SCORE_TYPES = tuple(t for t in NUMERIC_TYPES if t != "BOOLEAN")  # a true/false is not a score
 ZONED = "TIMESTAMP WITH TIME ZONE"
 
 
@@ -107,12 +108,13 @@ def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
             logs,
             scores,
             "scores_col",
-            NUMERIC_TYPES,
+            SCORE_TYPES,
             f"a single number per row for scores_kind={kind}",
         )
     elif not (
         logs.type_of(scores).endswith("]")
-        and logs.type_of(scores).rsplit("[", 1)[0].startswith(NUMERIC_TYPES)
+        and "[" not in (element := logs.type_of(scores).rsplit("[", 1)[0])  # not nested
+        and element.startswith(SCORE_TYPES)
     ):
         raise DbmetricsError(
             f"scores_col: column `{scores}` is {logs.type_of(scores)}; "
