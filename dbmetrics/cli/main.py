@@ -47,6 +47,13 @@ class Group(click.Group):
             if ctx.params.get("verbose"):
                 raise
             raise click.ClickException(one_line(e)) from None
+        except MemoryError:
+            if ctx.params.get("verbose"):
+                raise
+            raise click.ClickException(
+                "out of memory in Python (the arrays and result tables dbmetrics holds outside "
+                "DuckDB, which --memory-limit does not bound); read fewer days or segments"
+            ) from None
         except KeyboardInterrupt:
             click.echo("\ndbmetrics: interrupted", err=True)
             ctx.exit(EXIT_INTERRUPTED)

@@ -75,6 +75,8 @@ def check_scores(con, roles: ColumnRoles) -> None:
 def explain(con, params: dict, exc: duckdb.Error) -> str:
     """DuckDB's first line, and for a Parquet log that cannot be decoded, which file."""
     text = "".join(c for c in first_line(exc) if c.isprintable())
+    if isinstance(exc, duckdb.OutOfMemoryException):  # no file is to blame
+        return f"{text}; raise the memory limit (--memory-limit) or read fewer days"
     logs = params.get("logs")
     if logs:
         try:
