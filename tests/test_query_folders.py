@@ -16,6 +16,7 @@ GOOD = """\
 -- name: per_version
 -- summary: Rows per version, from the shared state.
 -- param min_rows (integer, default 0): keep versions with at least this many rows
+-- include: column_roles
 -- output rows: rows
 -- example: dbmetrics run per_version --set logs=logs/
 SELECT {{version_col}}, sum(rows)::BIGINT AS rows
@@ -68,7 +69,7 @@ def assert_others_work(problem):
 
 def test_a_file_that_is_not_utf8_is_named_and_left_out(folder):
     (folder / "latin.sql").write_bytes(GOOD.replace("per_version", "latin").encode() + b"-- \xe9\n")
-    problem = f"{folder / 'latin.sql'}: not UTF-8 text (byte 0xe9 on line 11); save it as UTF-8"
+    problem = f"{folder / 'latin.sql'}: not UTF-8 text (byte 0xe9 on line 12); save it as UTF-8"
     assert_others_work(problem)
     asked = invoke("run", "latin", "--set", "logs=logs.parquet")
     assert (asked.exit_code, asked.stderr) == (1, f"Error: {problem}\n")
@@ -125,7 +126,7 @@ def test_a_user_query_may_not_take_a_built_in_name(folder):
     assert listed.stderr.startswith(f"not listed: {problem}")
 
 
-def test_a_query_using_the_state_declares_only_its_own_parameters(folder):
+def test_a_query_including_the_column_roles_lists_them_after_its_own(folder):
     info = get_query("per_version")
     assert [p.name for p in info.params][:3] == ["min_rows", "logs", "time_col"]
     assert info.param("bins").type == get_query("rollup").param("bins").type
