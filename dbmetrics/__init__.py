@@ -17,9 +17,13 @@ __version__ = "0.1.0"
 __all__ = ["FUNCTIONS", "DbmetricsError", "DbmetricsWarning", "__version__", "connect", "register"]
 
 
-def connect(database: str = ":memory:", **config) -> duckdb.DuckDBPyConnection:
+def connect(
+    database: str = ":memory:", functions: str = "fastest", **config
+) -> duckdb.DuckDBPyConnection:
     """A DuckDB connection with every dbmetrics function registered.
 
+    functions: 'fastest' (default; per function the faster of the SQL macro and the Python
+    UDF, as measured by the benchmark), 'macros' or 'udf' (see `register`).
     `config` goes to DuckDB as settings, e.g. connect(memory_limit="2GB", threads=2).
     """
     import duckdb
@@ -27,7 +31,7 @@ def connect(database: str = ":memory:", **config) -> duckdb.DuckDBPyConnection:
     from .functions import register
 
     settings = {key: str(value) for key, value in config.items()}
-    return register(duckdb.connect(database, config=settings))
+    return register(duckdb.connect(database, config=settings), functions)
 
 
 def __getattr__(name: str):

@@ -1,24 +1,56 @@
 """Shared pytest fixtures."""
 
+from pathlib import Path
+
+import duckdb
 import numpy as np
 import pyarrow as pa
 import pytest
 
 import dbmetrics
 
+MACRO_PACK = Path(__file__).resolve().parents[1] / "sql" / "macros" / "dbmetrics_macros.sql"
+# The conformance suite: every test_core_* test that takes `con` or `module_con` runs once per
+# implementation of the functions.
+CONFORMANCE = ("udf", "macros")
+
+
+def pytest_generate_tests(metafunc):
+    if "implementation" in metafunc.fixturenames and metafunc.module.__name__.rsplit(".")[
+        -1
+    ].startswith("test_core_"):
+        metafunc.parametrize("implementation", CONFORMANCE, scope="module")
+
+
+@pytest.fixture(scope="module")
+def implementation():
+    """Which functions a connection gets: dbmetrics.connect's default outside the
+    conformance suite."""
+    return "fastest"
+
+
+def open_connection(implementation: str) -> duckdb.DuckDBPyConnection:
+    """'udf' or 'fastest': dbmetrics.connect; 'macros': a bare DuckDB connection that only
+    ran the SQL pack (no dbmetrics code behind any function)."""
+    if implementation == "macros":
+        connection = duckdb.connect()
+        connection.execute(MACRO_PACK.read_text(encoding="utf-8"))
+        return connection
+    return dbmetrics.connect(functions=implementation)
+
 
 @pytest.fixture
-def con():
+def con(implementation):
     """An in-memory DuckDB connection with every dbmetrics function registered."""
-    connection = dbmetrics.connect()
+    connection = open_connection(implementation)
     yield connection
     connection.close()
 
 
 @pytest.fixture(scope="module")
-def module_con():
+def module_con(implementation):
     """One such connection shared by a module's tests (hypothesis, many cheap queries)."""
-    connection = dbmetrics.connect()
+    connection = open_connection(implementation)
     yield connection
     connection.close()
 

@@ -12,7 +12,7 @@ import duckdb
 
 import dbmetrics
 from dbmetrics import project
-from dbmetrics.cli import check, demo, partials, plot, queries, report, run, sql
+from dbmetrics.cli import check, demo, functions, partials, plot, queries, report, run, sql
 from dbmetrics.cli.__main__ import EXIT_INTERRUPTED, interrupted
 from dbmetrics.cli.messages import one_line
 from dbmetrics.cli.session import Session, warnings_to_stderr
@@ -113,5 +113,7 @@ def cli(ctx, project_file, database, memory_limit, threads, quiet, verbose):
     ctx.call_on_close(session.close)
 
 
-for _module in (run, queries, sql, demo, plot, report, check, partials):
+for _module in (run, queries, sql, demo, plot, report, check, partials, functions):
     cli.add_command(_module.command)
+cli.add_command(functions.macros_command)
+cli.add_command(functions.render_command)
