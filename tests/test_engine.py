@@ -76,3 +76,82 @@ def test_a_file_that_breaks_the_stream_is_named(con, tmp_path):
     with pytest.raises(DbmetricsError, match="b.parquet"):
         run_query(con, "rollup", {"logs": str(tmp_path / "*.parquet")})
     assert run_query(con, "rollup", {"logs": good}).num_rows > 0
+
+
+def test_the_three_routes_give_one_state(con, tmp_path, same_table):
+    # The numpy engine, DuckDB's SQL (sql_row_stats) and the per-row UDF compute STATE from
+    # the same rows; +inf logits and all-masked rows join the awkward log's cases.
+    from dbmetrics.queries.engine import partial_states
+    from dbmetrics.queries.render import render_query as render
+    from dbmetrics.queries.roles import column_roles
+    from dbmetrics.queries.schema import open_source
+    from dbmetrics.queries.state_sql import nested, sql_row_stats, state
+
+    awkward_log(tmp_path / "log.parquet")
+    extra = tmp_path / "more.parquet"
+    pq.write_table(
+        pa.table(
+            {
+                "ts": pa.array([dt.datetime(2026, 1, 6)] * 3, pa.timestamp("us")),
+                "model_version": ["v1"] * 3,
+                "region": ["a"] * 3,
+                "logits": pa.array(
+                    [[1.0, float("inf"), 0.0], [float("-inf")] * 3, [1e4, -1e4, 0.0]],
+                    pa.list_(pa.float32()),
+                ),
+                "label": pa.array([0, 1, 2], pa.int64()),
+            }
+        ),
+        extra,
+    )
+    logs = str(tmp_path / "*.parquet")
+    render(con, "rollup", {"logs": logs, "segment_cols": "region"})  # checks the parameters
+    texts = {
+        "logs": logs,
+        "time_col": "ts",
+        "scores_col": "logits",
+        "scores_kind": "logits",
+        "label_col": "label",
+        "version_col": "model_version",
+        "segment_cols": "region",
+        "labels": None,
+        "id_col": None,
+        "classes": None,
+    }
+    source = open_source(con, "logs", logs)
+    roles = column_roles(texts, {"logs": source}, set())
+    values = {"bins": 15, "classes": None, **source.bound}
+    udf_sql = state(roles)
+    sql_sql = state(roles, rows=nested(sql_row_stats(roles)))
+    udf = con.sql(udf_sql, params={k: values[k] for k in ("bins", *source.bound)}).to_arrow_table()
+    via_sql = con.sql(
+        sql_sql, params={k: values[k] for k in ("bins", *source.bound)}
+    ).to_arrow_table()
+    engine = partial_states(con, roles, values)["state"]
+    same_table(udf, via_sql)
+    same_table(udf, engine)
+    assert sum(udf.column("invalid_scores").to_pylist()) > 0
+
+
+def test_the_route_is_chosen_by_kind_and_classes(con, tmp_path):
+    from dbmetrics.queries.engine import state_route
+    from dbmetrics.queries.roles import column_roles
+    from dbmetrics.queries.schema import open_source
+
+    path = awkward_log(tmp_path / "log.parquet", n=50)
+    source = open_source(con, "logs", path)
+    texts = {
+        "time_col": "ts",
+        "scores_col": "logits",
+        "label_col": "label",
+        "version_col": "model_version",
+        "segment_cols": "",
+        "labels": None,
+        "id_col": None,
+        "classes": None,
+    }
+    logits = column_roles({**texts, "scores_kind": "logits"}, {"logs": source}, set())
+    probs = column_roles({**texts, "scores_kind": "probs"}, {"logs": source}, set())
+    assert state_route(con, logits, source.bound, classes=False) == "sql"
+    assert state_route(con, logits, source.bound, classes=True) == "engine"
+    assert state_route(con, probs, source.bound, classes=False) == "engine"  # K <= SHORT_K

@@ -179,3 +179,60 @@ def test_pack_loads_twice_and_replaces_itself():
     macros.load_macros(con)
     macros.load_macros(con)
     assert con.sql("SELECT predicted_class([0.1, 0.7, 0.2])").fetchall() == [(1,)]
+
+
+# ------------------------------------------------------------ commands
+
+
+def test_functions_command_lists_and_describes_the_catalogue():
+    from click.testing import CliRunner
+
+    from dbmetrics.cli.main import cli
+
+    listing = CliRunner().invoke(cli, ["--quiet", "functions"])
+    assert listing.exit_code == 0, listing.output
+    assert all(f.signature in listing.output for f in dbmetrics.FUNCTIONS)
+    one = CliRunner().invoke(cli, ["--quiet", "functions", "cross_entropy"])
+    assert "cross_entropy(logits, label) -> DOUBLE" in one.output
+    assert "SELECT cross_entropy([1.0, 2.0, 3.0], 2)" in one.output
+    markdown = CliRunner().invoke(cli, ["--quiet", "functions", "--markdown"])
+    assert markdown.output == functions.markdown_table()
+    unknown = CliRunner().invoke(cli, ["--quiet", "functions", "nope"])
+    assert unknown.exit_code == 2 and "no function 'nope'" in unknown.output
+
+
+def test_macros_command_writes_the_pack(tmp_path):
+    from click.testing import CliRunner
+
+    from dbmetrics.cli.main import cli
+
+    out = tmp_path / "pack.sql"
+    result = CliRunner().invoke(cli, ["--quiet", "macros", "--output", str(out)])
+    assert result.exit_code == 0, result.output
+    assert out.read_text() == macros.pack_text()
+    printed = CliRunner().invoke(cli, ["--quiet", "macros"])
+    assert printed.output == macros.pack_text()
+
+
+def test_a_rendered_saved_query_runs_on_a_bare_connection_with_the_pack(tmp_path, same_table):
+    from click.testing import CliRunner
+
+    from dbmetrics.cli.main import cli
+    from dbmetrics.queries import run_query
+
+    log = tmp_path / "log's.parquet"  # a quote in a value is written as a SQL literal
+    con = dbmetrics.connect()
+    con.execute(
+        f"""COPY (SELECT TIMESTAMP '2026-01-05' + to_hours(i) AS ts, 'v' || (i % 2) AS model_version,
+                  [i % 7 * 0.5, 1.0, -(i % 3)]::FLOAT[] AS logits,
+                  CASE WHEN i % 9 = 0 THEN NULL ELSE i % 3 END AS label
+           FROM range(500) t(i)) TO '{str(log).replace("'", "''")}' (FORMAT parquet)"""
+    )
+    args = ["--quiet", "render", "rollup", "--set", f"logs={log}", "--set", "grain=day"]
+    result = CliRunner().invoke(cli, args)
+    assert result.exit_code == 0, result.output
+    assert "$" not in result.output.split("\n", 3)[3]  # every bound value written in
+    bare = duckdb.connect()
+    bare.execute(macros.pack_text())
+    got = bare.sql(result.output).to_arrow_table()
+    same_table(run_query(con, "rollup", {"logs": str(log), "grain": "day"}), got)

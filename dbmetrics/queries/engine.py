@@ -22,7 +22,7 @@ from dbmetrics.udf_adapters import LOGITS_PAD, PROBS_PAD, ROW_STATS_TYPE, row_st
 from .header import bound_values
 from .roles import KINDS, ColumnRoles
 from .schema import quote
-from .state_sql import class_state, predictions, state
+from .state_sql import nested, predictions, sql_row_stats, state
 
 BATCH_ROWS = 16384
 BATCH_VALUES = 1 << 21
@@ -126,7 +126,7 @@ def partial_states(
 ) -> dict:
     """Every partial state of the log (or the time window) by name ("state", and
     "class_state" when `classes`), as Arrow tables: the `predictions` rows streamed through
-    `states_of_rows`, or, when that stream fails, the UDF route over the same SQL."""
+    `states_of_rows`."""
     source_sql = predictions(roles, window)
     reader = con.sql(source_sql, params=bound_values(source_sql, values)).to_arrow_reader(
         BATCH_ROWS
@@ -134,18 +134,20 @@ def partial_states(
     try:
         return states_of_rows(con, roles, reader, values, classes)
     except (duckdb.Error, pa.ArrowException):
-        # An error inside the stream (a corrupt file, a bad cast) reaches us wrapped and
-        # without its context; the UDF route over the same SQL reports it as DuckDB words it.
-        pass
+        # An error DuckDB raised while producing the rows (a corrupt file, a bad cast) reaches
+        # us wrapped by the Arrow stream, without its context: reading the rows again inside
+        # DuckDB alone raises it as DuckDB words it. Any other error surfaces unchanged.
+        raise_source_error(con, source_sql, values)
+        raise
     finally:
         reader.close()
-    sqls = {"state": state(roles, window)}
-    if classes:
-        sqls["class_state"] = class_state(roles, window)
-    return {
-        name: con.sql(sql, params=bound_values(sql, values)).to_arrow_table()
-        for name, sql in sqls.items()
-    }
+
+
+def raise_source_error(con, source_sql: str, values: dict) -> None:
+    """Evaluate every column of the `predictions` rows in DuckDB (hashing them, so that no
+    column is pruned), raising the error that reading them gives, if any."""
+    sql = f"SELECT sum(hash(COLUMNS(*))) FROM {nested(source_sql)}"
+    con.sql(sql, params=bound_values(sql, values)).fetchall()
 
 
 def states_of_rows(
@@ -217,23 +219,40 @@ FROM {CLASSES_VIEW}
 GROUP BY ALL""").to_arrow_table()
 
 
-def engine_pays(con, roles: ColumnRoles, bound: dict, classes: bool) -> bool:
-    """Whether the engine beats one UDF call per 2048 rows (measured, bench/README.md): for
-    the class state always (the UDF route unnests every probability), for STATE alone when
-    the rows are short (K <= SHORT_K, judged on the first rows), since DuckDB runs the UDF on
-    every core while the engine's numpy runs on one."""
-    if classes or roles.kind.startswith("binary_"):
-        return True
+def state_route(con, roles: ColumnRoles, bound: dict, classes: bool) -> str:
+    """Which route computes the state (measured, bench/README.md):
+
+    "engine": the numpy engine, for the class state (the other routes unnest every
+        probability) and for probabilities at small K (one pass instead of ~2048-row UDF calls);
+    "sql": DuckDB's vectorised SQL (`state_sql.sql_row_stats`) for STATE alone from logits:
+        it runs on every core with no per-call cost, at any K;
+    "udf": one row-statistics UDF call per 2048 rows (probabilities with long rows, K >
+        SHORT_K, judged on the first rows), which DuckDB runs on every core.
+    """
+    if classes:
+        return "engine"
+    if KINDS[roles.kind][0] == "logit_row_stats":
+        return "sql"
+    if roles.kind.startswith("binary_"):
+        return "engine"
     sql = (
         f"SELECT max(len(s)) FROM (SELECT logs.{quote(roles.scores)} AS s "
         f"FROM {roles.logs.sql} AS logs LIMIT 2048)"
     )
     k = con.sql(sql, params=bound_values(sql, bound)).fetchall()[0][0]
-    return k is None or k <= SHORT_K
+    return "engine" if k is None or k <= SHORT_K else "udf"
+
+
+def engine_pays(con, roles: ColumnRoles, bound: dict, classes: bool) -> bool:
+    """Whether a route other than the in-query UDF computes the state (see state_route)."""
+    return state_route(con, roles, bound, classes) != "udf"
 
 
 def materialized_states(con, roles: ColumnRoles, values: dict, classes: bool) -> dict:
-    """Compute STATE (and CLASS_STATE), register them on `con`, return the SQL reading them."""
+    """The {{state}} (and {{class_state}}) fragments: the SQL route's SELECT, or STATE (and
+    CLASS_STATE) computed now by the numpy engine, registered on `con` and read back."""
+    if state_route(con, roles, values, classes) == "sql":
+        return {"state": state(roles, rows=nested(sql_row_stats(roles)))}
     states = partial_states(con, roles, values, classes=classes)
     con.register(STATE_VIEW, states["state"])
     fragments = {"state": f"SELECT * FROM {STATE_VIEW}"}

@@ -23,6 +23,15 @@ rows. Every sum is a Kahan sum (fsum) and 0 when empty, so states add across day
 
 import textwrap
 
+from dbmetrics.kernels.row_stats import (
+    INVALID,
+    LABEL_OUT_OF_RANGE,
+    MISSING,
+    NOT_A_DISTRIBUTION,
+    UNLABELLED,
+)
+from dbmetrics.udf_adapters import ROW_STATS_TYPE
+
 from .roles import KINDS, ColumnRoles, class_index, day, day_start, key_fragments
 from .schema import quote
 
@@ -105,9 +114,73 @@ def row_stats(roles: ColumnRoles, window: bool = False) -> str:
     )
 
 
+# The row-statistics fields, in the order of the struct every route returns (the Python UDF,
+# the numpy engine, the SQL macro and sql_row_stats below): one list, udf_adapters.ROW_STATS_TYPE.
+ROW_STAT_FIELDS = tuple(f.name for f in ROW_STATS_TYPE)
+_SQL_TYPES = {"int8": "TINYINT", "int32": "INTEGER", "double": "DOUBLE", "bool": "BOOLEAN"}
+
+
+def sql_row_stats(roles: ColumnRoles, window: bool = False) -> str:
+    """predictions plus the row-statistics struct computed by DuckDB's own vectorised SQL
+    (logits kinds): the row maximum, the exp list and its sum are columns of nested SELECTs,
+    each computed once per row, so nothing is recomputed per class. Same conventions and
+    codes as kernels/row_stats.logit_row_stats (checked equal by the conformance tests):
+    d = z - max(z), s = sum exp(d); loss = log s - d_y, confidence = 1/s, entropy =
+    log s - sum p_j d_j (masked classes add 0), Brier = sum (p_j - [j = y])^2."""
+    if KINDS[roles.kind][0] != "logit_row_stats":
+        raise ValueError(f"the SQL row statistics take logits, not scores_kind={roles.kind}")
+    shape = (
+        f"SELECT day, {roles.keys}, scores, label, len(scores) AS k,\n"
+        f"       list_max(scores)::DOUBLE AS m, list_count(scores) AS present_values\n"
+        f"FROM {nested(predictions(roles, window))}"
+    )
+    issues = (
+        f"SELECT *,\n"
+        f"    CASE WHEN coalesce(k, 0) = 0 THEN {MISSING}\n"
+        f"         WHEN isfinite(m) AND present_values = k THEN 0 ELSE {INVALID} END"
+        f" AS score_issue,\n"
+        f"    CASE WHEN label IS NULL THEN {UNLABELLED}\n"
+        f"         WHEN k > 0 AND (label < 0 OR label >= k) THEN {LABEL_OUT_OF_RANGE}"
+        f" ELSE 0 END AS label_issue\n"
+        f"FROM {nested(shape)}"
+    )
+    exps = (
+        "SELECT *, list_sum(e) AS s\nFROM (\n"
+        "    SELECT *, CASE WHEN score_issue = 0\n"
+        "                   THEN list_transform(scores, lambda v: exp(v - m)) END AS e\n"
+        f"    FROM {nested(issues)}\n)"
+    )
+    y = "CASE WHEN score_issue = 0 AND label_issue = 0 THEN label END"
+    expressions = {
+        "score_issue": "score_issue",
+        "label_issue": "label_issue",
+        "classes": f"CASE WHEN score_issue <> {MISSING} THEN k END",
+        "loss": "ln(s) - (scores[y + 1] - m)",
+        "confidence": "1.0 / s",
+        "predicted": "CASE WHEN score_issue = 0 THEN list_position(scores, list_max(scores)) - 1 END",
+        "correct": "list_position(scores, list_max(scores)) - 1 = y",
+        "brier": "list_sum(list_transform(e, lambda x, i:"
+        " (x / s - (i = y + 1)::DOUBLE) * (x / s - (i = y + 1)::DOUBLE)))",
+        "entropy": "ln(s) - list_sum(list_transform(e, lambda x, i:"
+        " CASE WHEN x > 0.0 THEN x / s * (scores[i] - m) ELSE 0.0 END))",
+        "bin": "dbmetrics_bin(1.0 / s, dbmetrics_row_bins($bins))",
+    }
+    assert tuple(expressions) == ROW_STAT_FIELDS, "one expression per row-statistics field"
+    struct = ",\n".join(
+        f"    '{name}': ({expressions[name]})::{_SQL_TYPES[str(f.type)]}"
+        for name, f in zip(ROW_STAT_FIELDS, ROW_STATS_TYPE)
+    )
+    return (
+        f"SELECT day, {roles.keys}, label, {{\n{struct}\n}} AS stats\n"
+        f"FROM (SELECT *, {y} AS y FROM {nested(exps)})"
+    )
+
+
 def state(roles: ColumnRoles, window: bool = False, rows: str | None = None) -> str:
-    """STATE (see module docstring) as a SELECT; `rows` names a relation that already holds
-    day, keys, label and stats (the numpy engine's output) instead of the UDF call."""
+    """STATE (see module docstring) as a SELECT; `rows` is a relation (a name, or a nested
+    SELECT such as sql_row_stats) that already holds day, keys, label and stats (the numpy
+    engine's output, or DuckDB's SQL) instead of the UDF call. Row-issue codes are the
+    kernel's constants (kernels/row_stats.py)."""
     evaluated = (
         f"SELECT *, coalesce(stats.score_issue = 0 AND stats.label_issue = 0\n"
         f"                   AND isfinite(stats.loss), false) AS evaluated\n"
@@ -116,10 +189,11 @@ def state(roles: ColumnRoles, window: bool = False, rows: str | None = None) -> 
     return f"""SELECT day, {roles.keys}, stats.bin AS bin,
     count(*) AS rows,
     count(label) AS labelled_rows,
-    count(*) FILTER (WHERE stats.score_issue = 1) AS missing_scores,
-    count(*) FILTER (WHERE stats.score_issue >= 2) AS invalid_scores,
+    count(*) FILTER (WHERE stats.score_issue = {MISSING}) AS missing_scores,
+    count(*) FILTER (WHERE stats.score_issue IN ({INVALID}, {NOT_A_DISTRIBUTION})) AS invalid_scores,
     count(*) FILTER (WHERE stats.score_issue = 0) AS scored_rows,
-    count(*) FILTER (WHERE stats.score_issue = 0 AND stats.label_issue = 2) AS bad_labels,
+    count(*) FILTER (WHERE stats.score_issue = 0
+                     AND stats.label_issue = {LABEL_OUT_OF_RANGE}) AS bad_labels,
     count(*) FILTER (WHERE stats.score_issue = 0 AND stats.label_issue = 0
                      AND stats.loss = 'inf') AS infinite_loss_rows,
     count(*) FILTER (WHERE evaluated) AS evaluated_rows,
