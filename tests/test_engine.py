@@ -152,6 +152,6 @@ def test_the_route_is_chosen_by_kind_and_classes(con, tmp_path):
     }
     logits = column_roles({**texts, "scores_kind": "logits"}, {"logs": source}, set())
     probs = column_roles({**texts, "scores_kind": "probs"}, {"logs": source}, set())
-    assert state_route(con, logits, source.bound, classes=False) == "sql"
+    assert state_route(con, logits, source.bound, classes=False) == "engine"  # K <= SHORT_K
     assert state_route(con, logits, source.bound, classes=True) == "engine"
     assert state_route(con, probs, source.bound, classes=False) == "engine"  # K <= SHORT_K

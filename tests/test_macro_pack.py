@@ -232,6 +232,7 @@ def test_a_rendered_saved_query_runs_on_a_bare_connection_with_the_pack(tmp_path
     result = CliRunner().invoke(cli, args)
     assert result.exit_code == 0, result.output
     assert "$" not in result.output.split("\n", 3)[3]  # every bound value written in
+    assert "logit_row_stats(" not in result.output  # the state in SQL alone, no struct call
     bare = duckdb.connect()
     bare.execute(macros.pack_text())
     got = bare.sql(result.output).to_arrow_table()

@@ -22,7 +22,7 @@ from dbmetrics.udf_adapters import LOGITS_PAD, PROBS_PAD, ROW_STATS_TYPE, row_st
 from .header import bound_values
 from .roles import KINDS, ColumnRoles
 from .schema import quote
-from .state_sql import nested, predictions, sql_row_stats, state
+from .state_sql import nested, predictions, state
 
 BATCH_ROWS = 16384
 BATCH_VALUES = 1 << 21
@@ -220,20 +220,18 @@ GROUP BY ALL""").to_arrow_table()
 
 
 def state_route(con, roles: ColumnRoles, bound: dict, classes: bool) -> str:
-    """Which route computes the state (measured, bench/README.md):
+    """Which route computes the state in a Python process (measured, bench/README.md):
 
-    "engine": the numpy engine, for the class state (the other routes unnest every
-        probability) and for probabilities at small K (one pass instead of ~2048-row UDF calls);
-    "sql": DuckDB's vectorised SQL (`state_sql.sql_row_stats`) for STATE alone from logits:
-        it runs on every core with no per-call cost, at any K;
-    "udf": one row-statistics UDF call per 2048 rows (probabilities with long rows, K >
-        SHORT_K, judged on the first rows), which DuckDB runs on every core.
+    "engine": the numpy engine, for the class state (the UDF route unnests every
+        probability), binary kinds, and rows of K <= SHORT_K (judged on the first rows);
+    "udf": one row-statistics UDF call per 2048 rows for longer rows, which DuckDB runs on
+        every core while the engine's numpy runs on one.
+
+    The SQL route (`state_sql.sql_row_stats`) computes the same STATE in DuckDB alone; it is
+    what `dbmetrics render` writes for clients without Python, but measured slower than both
+    routes above at K = 10 and K = 1000, so it is not chosen here.
     """
-    if classes:
-        return "engine"
-    if KINDS[roles.kind][0] == "logit_row_stats":
-        return "sql"
-    if roles.kind.startswith("binary_"):
+    if classes or roles.kind.startswith("binary_"):
         return "engine"
     sql = (
         f"SELECT max(len(s)) FROM (SELECT logs.{quote(roles.scores)} AS s "
@@ -249,10 +247,7 @@ def engine_pays(con, roles: ColumnRoles, bound: dict, classes: bool) -> bool:
 
 
 def materialized_states(con, roles: ColumnRoles, values: dict, classes: bool) -> dict:
-    """The {{state}} (and {{class_state}}) fragments: the SQL route's SELECT, or STATE (and
-    CLASS_STATE) computed now by the numpy engine, registered on `con` and read back."""
-    if state_route(con, roles, values, classes) == "sql":
-        return {"state": state(roles, rows=nested(sql_row_stats(roles)))}
+    """Compute STATE (and CLASS_STATE), register them on `con`, return the SQL reading them."""
     states = partial_states(con, roles, values, classes=classes)
     con.register(STATE_VIEW, states["state"])
     fragments = {"state": f"SELECT * FROM {STATE_VIEW}"}

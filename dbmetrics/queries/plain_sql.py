@@ -1,7 +1,8 @@
 """A saved query as plain SQL: bound values written in as literals, the state computed by the
 functions of the SQL macro pack, so that any DuckDB client that loaded the pack can run it.
 
-The statement is the one `run_query` would run on the row-statistics route (no numpy engine);
+The state comes from DuckDB's SQL alone (state_sql.sql_row_stats for logits; the
+row-statistics macro for probabilities), never from the numpy engine;
 values still pass the query's parameter checks first, and each is written as a typed SQL
 literal (strings quoted, quotes doubled), never pasted.
 """
@@ -49,7 +50,7 @@ def inline(sql: str, bound: dict) -> str:
 
 def plain_sql(con, name: str, params: dict, query_dirs=None) -> str:
     """The saved query `name` with `params` as one self-contained SQL statement."""
-    sql, bound = render_query(con, name, params, query_dirs, materialize=False)
+    sql, bound = render_query(con, name, params, query_dirs, sql_state=True)
     return (
         f"-- dbmetrics saved query `{name}` as plain SQL; load the macro pack first\n"
         "-- (`dbmetrics macros --output dbmetrics_macros.sql`, then in the DuckDB shell\n"

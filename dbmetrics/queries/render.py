@@ -41,9 +41,11 @@ def render_query(
     params: dict,
     query_dirs=None,
     materialize: bool = False,
+    sql_state: bool = False,
 ) -> tuple:
-    """(sql, bound): the query's SQL and the values for exactly the `$names` it uses."""
-    r = rendered(con, name, params, query_dirs, materialize)
+    """(sql, bound): the query's SQL and the values for exactly the `$names` it uses.
+    sql_state: {{state}} from logits by DuckDB's SQL alone (state_sql.sql_row_stats)."""
+    r = rendered(con, name, params, query_dirs, materialize, sql_state=sql_state)
     return r.sql, r.bound
 
 
@@ -54,6 +56,7 @@ def rendered(
     query_dirs=None,
     materialize: bool = False,
     inspect=None,
+    sql_state: bool = False,
 ) -> Rendered:
     """The query rendered with `params`, with what a caller needs to judge its result.
 
@@ -73,12 +76,18 @@ def rendered(
                 f"{', '.join(missing)} it does not declare"
             )
     return render_info(
-        con, info, params, {f"query:{q.name}": q for q in included}, materialize, inspect
+        con, info, params, {f"query:{q.name}": q for q in included}, materialize, inspect, sql_state
     )
 
 
 def render_info(
-    con, info: QueryInfo, params: dict, included: dict, materialize: bool = False, inspect=None
+    con,
+    info: QueryInfo,
+    params: dict,
+    included: dict,
+    materialize: bool = False,
+    inspect=None,
+    sql_state: bool = False,
 ) -> Rendered:
     """materialize: compute STATE now with the numpy engine (engine.py) and read it from a
     registered table; otherwise {{state}} is the equivalent SQL with one UDF call per row."""
@@ -124,7 +133,7 @@ def render_info(
         values.update(roles.values)
         if inspect is not None:
             inspect(con, roles)
-        filled.update(fragments(roles))
+        filled.update(fragments(roles, sql_state))
         uses = {name for q in queries for name in PLACEHOLDER.findall(q.body)}
         bound = {k: v for s in sources.values() for k, v in s.bound.items()}
         if (

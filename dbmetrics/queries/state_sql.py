@@ -229,7 +229,7 @@ FROM {nested(per_class)}
 GROUP BY ALL"""
 
 
-def fragments(roles: ColumnRoles) -> dict:
+def fragments(roles: ColumnRoles, sql_state: bool = False) -> dict:
     """The {{placeholders}} the column roles provides to template bodies.
 
     state / class_state: the two additive states (SELECTs); predictions: one row per
@@ -238,6 +238,8 @@ def fragments(roles: ColumnRoles) -> dict:
     ref."seg" AND ...` (aliases cur and ref; `true` without segments); and each column-role
     column parameter, quoted.
     """
+    logits = KINDS[roles.kind][0] == "logit_row_stats"
+    rows = nested(sql_row_stats(roles)) if sql_state and logits else None
     columns = {
         "time_col": roles.time,
         "scores_col": roles.scores,
@@ -247,7 +249,7 @@ def fragments(roles: ColumnRoles) -> dict:
     return {
         **{name: quote(col) for name, col in columns.items() if col is not None},
         **key_fragments(roles.version, roles.segments),
-        "state": textwrap.indent(state(roles), "    ").lstrip(),
+        "state": textwrap.indent(state(roles, rows=rows), "    ").lstrip(),
         "class_state": textwrap.indent(class_state(roles), "    ").lstrip(),
         "predictions": textwrap.indent(predictions(roles), "    ").lstrip(),
     }
