@@ -187,6 +187,35 @@ def ce_sql(ctx):
     return lambda: scalar(con, sql, ctx)
 
 
+def pack_connection(ctx):
+    """A bare DuckDB connection that loaded only the SQL macro pack (as any client would)."""
+    from dbmetrics.macros import load_macros
+
+    return load_macros(connect(ctx, False))
+
+
+def ce_macro(ctx):
+    """avg(cross_entropy(logits, label)) through the SQL macro (the pack on a bare connection)."""
+    con = pack_connection(ctx)
+    return lambda: scalar(con, "SELECT avg(cross_entropy(logits, label)) FROM read_parquet(?)", ctx)
+
+
+def rollup_sql_state(ctx):
+    """The `rollup` saved query as plain SQL (`dbmetrics render`): the state in DuckDB SQL
+    alone, run on a bare connection with the macro pack."""
+    from dbmetrics.queries.plain_sql import plain_sql
+
+    params = {
+        "logs": ctx.scan,
+        "grain": "week",
+        "segment_cols": "segment",
+        "bins": str(BINS),
+    }
+    sql = plain_sql(connect(ctx, True), "rollup", params)
+    con = pack_connection(ctx)
+    return lambda: rows_of(con.sql(sql).to_arrow_table())
+
+
 # --- In-memory routes ------------------------------------------------------------------
 
 
@@ -537,6 +566,8 @@ METHODS = {
     "pandas_scipy": (rollup_pandas, "rollup", "pandas read_parquet + np.stack + scipy + groupby"),
     "ce_udf": (ce_udf, "ce", "avg(cross_entropy(logits, label))"),
     "ce_sql": (ce_sql, "ce", "avg of the SQL cross-entropy (b1)"),
+    "ce_macro": (ce_macro, "ce", "avg(cross_entropy(logits, label)), the SQL macro"),
+    "rollup_sql_state": (rollup_sql_state, "rollup", "rollup as plain SQL: state in DuckDB SQL"),
     "partials_build": (partials_build, "rollup", "dbmetrics partials: build the store, roll it up"),
     "partials_1day": (partials_one_day, "rollup", "partials update of the newest day + roll-up"),
     "partials_7late": (

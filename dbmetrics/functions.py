@@ -52,7 +52,8 @@ ROW_STATS = duckdb.struct_type(
 )
 TAGS = {
     "logits": "takes a list of logits (a -inf logit is a masked class; +inf or all masked: NULL)",
-    "probs": "takes a list of probabilities (checked: >= 0, sum within 1e-3 of 1; renormalised)",
+    "probs": "takes a list of probabilities (checked: >= 0, sum within "
+    f"{dist.SUM_TOLERANCE} of 1; renormalised)",
     "label": "takes a 0-based class index; outside [0, K) is an error naming the value",
     "two_lists": "takes two lists with one entry per class (lengths differ: an error)",
     "binary": "takes one score of class 1 and a 0/1 label (else an error)",
@@ -126,7 +127,8 @@ FUNCTIONS = (
         (SCORES,),
         SCORES,
         lists_to_lists(dist.as_distribution, PROBS_PAD),
-        "the probabilities checked (>= 0, sum within 1e-3 of 1) and renormalised to sum 1; else NULL",
+        f"the probabilities checked (>= 0, sum within {dist.SUM_TOLERANCE} of 1) and renormalised "
+        "to sum 1; else NULL",
         "as_distribution([0.2, 0.3, 0.4999])",
         ("probs",),
     ),

@@ -43,6 +43,17 @@ def test_row_issue_codes_in_the_pack_header_are_the_kernel_constants():
     )
 
 
+def test_the_pack_checks_probabilities_with_the_kernels_tolerance():
+    # The one home of the tolerance is kernels/distributions.SUM_TOLERANCE; plain SQL cannot
+    # import it, so the pack's two checks are held to it here.
+    from dbmetrics.kernels.distributions import SUM_TOLERANCE
+
+    text = macros.pack_text()
+    assert text.count(f"abs(ad_t - 1.0) <= {SUM_TOLERANCE}") == 1
+    assert text.count(f"abs(ps_t - 1.0) > {SUM_TOLERANCE}") == 1
+    assert "1e-3" not in text.replace("1e-3 of 1", "")
+
+
 def close(a, b) -> bool:
     if isinstance(a, dict):
         return a.keys() == b.keys() and all(close(a[k], b[k]) for k in a)

@@ -132,7 +132,7 @@ CREATE OR REPLACE MACRO dbmetrics_as_distribution(probs) AS
     list_transform([probs::DOUBLE[]], lambda ad_p:
         list_transform([list_sum(ad_p)], lambda ad_t:
             CASE WHEN list_count(ad_p) = len(ad_p) AND isfinite(ad_t)
-                      AND abs(ad_t - 1.0) <= 1e-3 AND list_min(ad_p) >= 0.0
+                      AND abs(ad_t - 1.0) <= 0.001 AND list_min(ad_p) >= 0.0
                  THEN list_transform(ad_p, lambda ad_x: ad_x / ad_t) END)[1])[1];
 
 -- Non-negative counts or weights scaled to sum 1; NULL if invalid or all zero.
@@ -379,7 +379,7 @@ CREATE OR REPLACE MACRO prob_row_stats(probs, label, bins) AS
     list_transform([CASE
                         WHEN coalesce(len(ps_z), 0) = 0 THEN 1
                         WHEN list_count(ps_z) < len(ps_z) OR NOT isfinite(ps_t) THEN 2
-                        WHEN abs(ps_t - 1.0) > 1e-3 OR list_min(ps_z) < 0.0 THEN 3
+                        WHEN abs(ps_t - 1.0) > 0.001 OR list_min(ps_z) < 0.0 THEN 3
                         ELSE 0
                     END], lambda ps_si:
     list_transform([dbmetrics_label_issue(len(ps_z), label)], lambda ps_li:
