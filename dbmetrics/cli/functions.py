@@ -64,7 +64,7 @@ def macros_command(output):
 
     \b
     Example:
-      dbmetrics macros --output dbmetrics_macros.sql && duckdb -c ".read dbmetrics_macros.sql"
+      dbmetrics macros --output dbmetrics_macros.sql
     """
     from dbmetrics import macros
     from dbmetrics.cli.output import atomic_write
@@ -96,7 +96,7 @@ def render_command(session, name, settings):
     \b
     Example:
       dbmetrics render rollup --set logs=demo_parquet/logs --set id_col=prediction_id \\
-          --set labels=demo_parquet/labels/labels.parquet > rollup.sql
+          --set labels=demo_parquet/labels/labels.parquet
     """
     from dbmetrics import queries
     from dbmetrics.queries.plain_sql import plain_sql
