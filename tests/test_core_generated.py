@@ -429,10 +429,17 @@ def row_stats_reference(kind, k, bins=10):
 
 @pytest.mark.parametrize("k", KS)
 @pytest.mark.parametrize("kind", ["logit", "prob"])
-def test_row_stats_agree_with_references(module_con, kind, k):
+def test_row_stats_agree_with_references(module_con, implementation, kind, k):
     col = sql_column(module_con, k, f"{kind}_row_stats({'z' if kind == 'logit' else 'p'}, y, 10)")
-    for field, expected in row_stats_reference(kind, k).items():
-        assert_agree(as_floats(col.field(field)), expected, f"{kind}_row_stats.{field}, K={k}")
+    expected = row_stats_reference(kind, k)
+    if implementation == "macros":
+        # The macros sum in DuckDB's order, so a confidence lying exactly on a bin edge (the
+        # generated rows put some there) may round to the other side: their bin is checked
+        # against their own confidence, itself held to the reference above.
+        conf = as_floats(col.field("confidence"))
+        expected["bin"] = np.where(np.isnan(conf), np.nan, calib_bin(conf, 10))
+    for field, want in expected.items():
+        assert_agree(as_floats(col.field(field)), want, f"{kind}_row_stats.{field}, K={k}")
 
 
 # ---------------------------------------------------------------- binary single scores
