@@ -67,7 +67,7 @@ def macros_command(output):
       dbmetrics macros --output dbmetrics_macros.sql
     """
     from dbmetrics import macros
-    from dbmetrics.cli.output import atomic_write
+    from dbmetrics.atomic import atomic_write
 
     text = macros.pack_text()
     if output is None:
