@@ -206,7 +206,7 @@ def test_abandoned_staging_and_temp_files_are_removed_under_the_lock(con, demo_t
     (dead / "state.0123.tmp").write_bytes(b"x" * 1000)
     (store / ".manifest.json.4242.tmp").write_text("{}")  # format 1's temp name
     alive = Publisher(Store(store), 1)  # a writer still staging keeps its files
-    alive.stage("state", "2026-01-05", pa.table({"x": [1]}))
+    alive.stage("state", "2026-01-05", pq.read_table(Store(store).files("state")[0]))
     partials.update(con, params, store)
     assert not dead.exists() and not (store / ".manifest.json.4242.tmp").exists()
     assert len(list(alive.folder.iterdir())) == 2

@@ -7,12 +7,14 @@ column roles a store was built with are fixed: a query that gives one with anoth
 is refused, naming the parameter and both values.
 """
 
+import pyarrow.parquet as pq
+
 from dbmetrics.errors import DbmetricsError
 from dbmetrics.queries.roles import key_fragments
 from dbmetrics.queries.schema import quote
 from dbmetrics.queries.values import split_names
 
-from .kinds import STATE_KINDS, StateKind
+from .kinds import STATE_KINDS, StateKind, check
 from .store import Store
 
 UNAVAILABLE = None  # a store keeps sums, not predictions: render refuses {{predictions}}
@@ -74,6 +76,9 @@ def store_fragments(texts: dict, given: dict | None = None) -> tuple:
             f"partials: the store {s.root} lists {len(absent)} file(s) that are gone "
             f"(first {absent[0]}); `dbmetrics partials update` recomputes them"
         )
+    for entry in manifest["days"].values():
+        for kind, rel in entry["files"].items():
+            check(kind, pq.read_schema(s.root / rel), str(s.root / rel))
     keys = ", ".join(quote(c) for c in (version, *segments))
     fragments = {
         **key_fragments(version, segments),

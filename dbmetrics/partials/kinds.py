@@ -10,6 +10,9 @@ here and its table in `compute_kinds`, nothing else.
 
 from dataclasses import dataclass
 
+import pyarrow as pa
+
+from dbmetrics.errors import DbmetricsError
 from dbmetrics.queries.engine import partial_states
 from dbmetrics.queries.state_sql import CLASS_STATE_COLUMNS, STATE_COLUMNS
 
@@ -45,3 +48,71 @@ def compute_kinds(con, roles, values: dict) -> dict:
     """{kind name: Arrow table with day, keys and the kind's columns} for the rows of
     `roles.logs`, from one scan of the logs."""
     return partial_states(con, roles, values, classes=True)
+
+
+# The declared schema of a day file (column order and types), one for every writer: the
+# DuckDB update and the Spark job cast their tables with `conform` before staging, and
+# readers `check` each listed file before rolling the store up.
+#
+#     day                 DATE
+#     version, segments   the log's own types (text as `string`, whatever Arrow flavour
+#                         the engine that wrote it uses)
+#     the kind's keys     `bin` INTEGER, `class` BIGINT, any other BIGINT
+#     the kind's columns  `sum_*` DOUBLE, counts BIGINT
+FIXED_TYPES = {"day": pa.date32(), "bin": pa.int32(), "class": pa.int64()}
+KINDS_BY_NAME = {k.name: k for k in STATE_KINDS}
+
+
+def column_type(name: str) -> pa.DataType:
+    """The declared type of a state column (not a version or segment column)."""
+    if name in FIXED_TYPES:
+        return FIXED_TYPES[name]
+    return pa.float64() if name.startswith("sum_") else pa.int64()
+
+
+def key_type(t: pa.DataType) -> pa.DataType:
+    """A version or segment column's type without the engine's Arrow flavour (large or view
+    strings and binaries, dictionary encoding), so equal values have equal types."""
+    if pa.types.is_dictionary(t):
+        t = t.value_type
+    if pa.types.is_large_string(t) or pa.types.is_string_view(t):
+        return pa.string()
+    if pa.types.is_large_binary(t) or pa.types.is_binary_view(t):
+        return pa.binary()
+    return t
+
+
+def declared(kind: str, schema: pa.Schema) -> pa.Schema:
+    """The declared schema of a `kind` day file whose version and segment columns are those
+    of `schema` (every column that is not `day` nor one of the kind's own)."""
+    k = KINDS_BY_NAME[kind]
+    own = ("day", *k.keys, *k.columns)
+    keys = [f for f in schema if f.name not in own]
+    return pa.schema(
+        [
+            pa.field("day", column_type("day")),
+            *(pa.field(f.name, key_type(f.type)) for f in keys),
+            *(pa.field(c, column_type(c)) for c in (*k.keys, *k.columns)),
+        ]
+    )
+
+
+def conform(kind: str, table: pa.Table) -> pa.Table:
+    """`table`, a state of `kind`, in the declared column order and types."""
+    schema = declared(kind, table.schema)
+    missing = [f.name for f in schema if f.name not in table.column_names]
+    if missing:
+        raise DbmetricsError(f"partials: a {kind} table lacks column(s) {', '.join(missing)}")
+    return table.select(schema.names).cast(schema)
+
+
+def check(kind: str, schema: pa.Schema, where: str) -> None:
+    """Refuse a day file whose schema is not the declared one (names, order, types)."""
+    expected = declared(kind, schema)
+    if not schema.remove_metadata().equals(expected):
+        got = ", ".join(f"{f.name} {f.type}" for f in schema)
+        want = ", ".join(f"{f.name} {f.type}" for f in expected)
+        raise DbmetricsError(
+            f"partials: {where} does not have the declared {kind} schema; has ({got}), "
+            f"expected ({want}); recompute it with `partials update --full`"
+        )

@@ -49,7 +49,7 @@ import pyarrow.parquet as pq
 
 from dbmetrics.errors import DbmetricsError
 
-from .kinds import KIND_NAMES
+from .kinds import KIND_NAMES, conform
 from .manifest import DAY_FILE, FORMAT, day_file, is_day_key, validated
 
 LOCK = ".lock"
@@ -312,9 +312,19 @@ class Publisher:
         self.staged = {}  # (kind, key) -> staged path
 
     def stage(self, kind: str, key: str, table: pa.Table) -> None:
-        """Write `table` as the day `key`'s file of state kind `kind`."""
+        """Write `table`, cast to the declared schema (kinds.py), as the day `key`'s file of
+        state kind `kind`."""
         self._check(kind, key)
-        path = write_new(self.folder, kind, lambda f: pq.write_table(table, f, compression="zstd"))
+        path = write_day_file(self.folder, kind, table)
+        self._put(kind, key, path)
+
+    def stage_written(self, kind: str, key: str, path) -> None:
+        """Take in a file another process wrote into this publisher's folder with
+        `write_day_file(publisher.folder, ...)` (a Spark task), as the day `key`'s file."""
+        self._check(kind, key)
+        path = Path(path)
+        if path.parent != self.folder or not path.is_file():
+            raise DbmetricsError(f"partials: {path} is not a file staged in {self.folder}")
         self._put(kind, key, path)
 
     def stage_file(self, kind: str, key: str, parquet_file) -> None:
@@ -401,6 +411,12 @@ class Publisher:
 
     def __exit__(self, *exc):
         self.close()
+
+
+def write_day_file(folder: Path, kind: str, table: pa.Table) -> Path:
+    """Write a day's table of state kind `kind` in the declared schema, under a new name."""
+    table = conform(kind, table)
+    return write_new(folder, kind, lambda f: pq.write_table(table, f, compression="zstd"))
 
 
 def write_json(root: Path, name: str, data) -> None:
