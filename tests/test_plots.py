@@ -92,8 +92,9 @@ def test_reliability_writes_a_1600_by_1000_png(invoke, tmp_path):
             "--start",
             "2026-03-02",
         ],
+        ["--query", "labels", "--metric", "p90_delay_days"],
     ],
-    ids=["ce-by-version", "accuracy-by-channel", "drift-by-region"],
+    ids=["ce-by-version", "accuracy-by-channel", "drift-by-region", "label-delay"],
 )
 def test_trend_writes_a_1600_by_1000_png(invoke, tmp_path, args):
     result = invoke("plot", "trend", *args, *LABELLED, "--output", "trend.png")

@@ -62,7 +62,7 @@ def logs(tmp_path):
 
 def test_built_in_queries_and_their_header():
     queries = {q.name: q for q in list_queries()}
-    assert set(queries) == {"rollup", "calibration", "drift", "segments", "recalibration"}
+    assert set(queries) == {"rollup", "calibration", "drift", "segments", "recalibration", "labels"}
     grain = queries["rollup"].param("grain")
     assert (grain.type, grain.choices, grain.default, grain.required) == (
         "choice(day|week|month)",
@@ -109,7 +109,7 @@ def test_unknown_query_lists_the_names():
     with pytest.raises(
         DbmetricsError,
         match="no saved query `rolup`; queries are: "
-        "calibration, drift, recalibration, rollup, segments",
+        "calibration, drift, labels, recalibration, rollup, segments",
     ):
         get_query("rolup")
 

@@ -120,7 +120,7 @@ def test_the_report_fetches_nothing(report):
 
 def test_every_picture_is_an_inline_png_with_ink(report):
     pictures = images(parse(report))
-    assert len(pictures) == 5
+    assert len(pictures) == 6
     assert all(not_blank(p) for p in pictures)
 
 

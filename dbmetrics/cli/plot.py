@@ -118,7 +118,7 @@ def reliability(session, settings, by, only, start, end, title, output):
     "--query",
     "-q",
     "name",
-    type=click.Choice(["rollup", "drift"]),
+    type=click.Choice(["rollup", "drift", "labels"]),
     default="rollup",
     show_default=True,
     help="Saved query whose result to draw.",
@@ -129,7 +129,8 @@ def reliability(session, settings, by, only, start, end, title, output):
     default="cross_entropy",
     show_default=True,
     metavar="COLUMN",
-    help="Numeric output column to draw over period, e.g. accuracy, ece, prediction_js.",
+    help="Numeric output column to draw over period, e.g. accuracy, ece, prediction_js, "
+    "median_delay_days (--query labels).",
 )
 @_plot_options
 @click.pass_obj

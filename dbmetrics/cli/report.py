@@ -15,7 +15,7 @@ from dbmetrics.atomic import write_output
 from dbmetrics.cli.params import merge, parse_settings
 from dbmetrics.errors import DbmetricsError
 
-QUERIES = ("rollup", "drift", "calibration", "compare")
+QUERIES = ("rollup", "drift", "calibration", "labels", "compare")
 
 
 def _html_path(ctx, param, value: str) -> str:

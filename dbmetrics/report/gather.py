@@ -19,7 +19,8 @@ class ReportData:
 
     rollup, drift, calibration: per period x version. cells: drift per period x version x
     ``segment`` (the drift table again when there is no segment). compare: the ``compare``
-    saved query's result when that query exists, else None. latest: the last ``latest``
+    saved query's result when that query exists and runs, else None. labels: the ``labels``
+    query per period x version (None when it cannot run, e.g. no label time column). latest: the last ``latest``
     periods of the range, newest last.
     """
 
@@ -36,6 +37,7 @@ class ReportData:
     cells: pa.Table
     calibration: pa.Table
     compare: pa.Table | None
+    labels: pa.Table | None
     logs: str
     thresholds: dict
 
@@ -90,7 +92,8 @@ def gather(
     drift = run("drift", segment_cols="")
     cells = run("drift", segment_cols=segment) if segment else drift
     calibration = run("calibration", segment_cols="")
-    compare = run("compare") if _exists("compare", query_dirs) else None
+    compare = _optional(lambda: run("compare")) if _exists("compare", query_dirs) else None
+    labels = _optional(lambda: run("labels", segment_cols=""))
     settings = resolved("drift")
     periods = sorted(set(rollup["period"].to_pylist()))
     return ReportData(
@@ -107,6 +110,7 @@ def gather(
         cells=cells,
         calibration=calibration,
         compare=compare,
+        labels=labels,
         logs=str(settings.get("partials") or settings.get("logs") or ""),
         thresholds={k: settings.get(k) for k in THRESHOLDS},
     )
@@ -122,6 +126,14 @@ THRESHOLDS = (
     "label_js_threshold",
     "ece_threshold",
 )
+
+
+def _optional(call):
+    """``call()``, or None when it fails with a one-line error (e.g. no label time column)."""
+    try:
+        return call()
+    except DbmetricsError:
+        return None
 
 
 def _exists(name: str, query_dirs) -> bool:

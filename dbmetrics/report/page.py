@@ -322,12 +322,32 @@ def _labels(data: ReportData) -> str:
     version = data.version_col
     figure = plots.trend_figure(data.rollup, "label_coverage", version, (version,), data.grain)
     figure.axes[0].set_ylim(0, 1.05)
-    return '<h2 id="labels">Label coverage</h2>' + _figure(
-        figure,
-        "Label coverage over time",
-        "Share of each period's rows whose label has arrived. Recent periods are low while "
-        "labels are on their way; their labelled metrics rest on fewer rows.",
-    )
+    parts = [
+        '<h2 id="labels">Label coverage and arrival</h2>',
+        _figure(
+            figure,
+            "Label coverage over time",
+            "Share of each period's rows whose label has arrived. Recent periods are low while "
+            "labels are on their way; their labelled metrics rest on fewer rows.",
+        ),
+    ]
+    if data.labels is not None and data.labels.num_rows:
+        figure = plots.trend_figure(data.labels, "p90_delay_days", version, (version,), data.grain)
+        parts.append(
+            _figure(
+                figure,
+                "Label arrival delay over time",
+                "90th percentile of the days from prediction to label, per period (labels "
+                "query); the newest periods look fast only because their slow labels have "
+                "not arrived yet.",
+            )
+        )
+    else:
+        parts.append(
+            "<p>No arrival delay: the labels query needs a separate label table with a "
+            "label time column (label_time_col).</p>"
+        )
+    return "\n".join(parts)
 
 
 def _figure(figure, title: str, caption: str) -> str:
