@@ -68,9 +68,23 @@ def heatmap_figure(
     ax.set_yticks(range(len(names)), [" · ".join(map(text, n)) for n in names], fontsize=7)
     ax.set(xlabel=period_label(grain), ylabel=" · ".join(rows))
     if own.any() or other.any():
-        ax.legend(loc="upper left", bbox_to_anchor=(0, -0.22), ncol=2, fontsize=7, frameon=False)
+        from matplotlib.lines import Line2D
+
+        keys = [(CROSS, "x", 7), (DOT, ".", 6)]
+        handles = [
+            Line2D([], [], marker=m, markersize=z, color="black", linestyle="", label=t)
+            for t, m, z in keys
+        ]
+        ax.legend(
+            handles=handles,
+            loc="upper left",
+            bbox_to_anchor=(0, -0.22),
+            ncol=2,
+            fontsize=7,
+            frameon=False,
+        )
     label = metric_label(measure)
     ax.set_title(
-        title or f"{label[0].upper()}{label[1:]} per {grain} and {', '.join(rows)}", fontsize=10
+        title or f"{label[0].upper()}{label[1:]} per {grain}, by {' and '.join(rows)}", fontsize=10
     )
     return figure

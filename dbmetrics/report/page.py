@@ -333,6 +333,7 @@ def _labels(data: ReportData) -> str:
     ]
     if data.labels is not None and data.labels.num_rows:
         figure = plots.trend_figure(data.labels, "p90_delay_days", version, (version,), data.grain)
+        figure.axes[0].set_ylim(0, None)
         parts.append(
             _figure(
                 figure,
