@@ -194,3 +194,18 @@ def test_segments_says_how_many_cells_found_no_business_row(tmp_path, monkeypatc
     missing = sum(r["business_found"] == "false" for r in rows)
     assert missing == sum(r["region"] not in ("north", "south") for r in rows) > 0
     assert f"{missing} of {len(rows)} cells found no business row" in result.stderr
+
+
+def test_duckdb_never_prints_its_progress_bar_into_the_output():
+    """DuckDB prints a bar to stdout (fd 1) for queries over 2 s unless told not to: that
+    would land in a piped table or CSV, carriage returns and all."""
+    from dbmetrics.cli.project import Project
+    from dbmetrics.cli.session import Session
+
+    for quiet in (True, False):  # not a terminal under pytest: no progress of ours either
+        session = Session(Project(), quiet=quiet)
+        con = session.connect()
+        assert con.sql("SELECT current_setting('enable_progress_bar_print')").fetchall() == [
+            (False,)
+        ]
+        session.close()

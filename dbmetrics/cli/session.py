@@ -62,6 +62,8 @@ class Session:
             self._con = dbmetrics.connect(database, **config)
             if self.show_progress:
                 progress.enable(self._con)
+            else:  # DuckDB's own bar would print to stdout, into a piped table or CSV
+                self._con.execute("SET enable_progress_bar_print = false")
         return self._con
 
     def check_memory_limit(self, value: str) -> None:
