@@ -199,8 +199,8 @@ def test_segments_says_how_many_cells_found_no_business_row(tmp_path, monkeypatc
 def test_duckdb_never_prints_its_progress_bar_into_the_output():
     """DuckDB prints a bar to stdout (fd 1) for queries over 2 s unless told not to: that
     would land in a piped table or CSV, carriage returns and all."""
-    from dbmetrics.cli.project import Project
     from dbmetrics.cli.session import Session
+    from dbmetrics.project import Project
 
     for quiet in (True, False):  # not a terminal under pytest: no progress of ours either
         session = Session(Project(), quiet=quiet)

@@ -170,3 +170,32 @@ def test_the_report_needs_periods_in_the_range_and_known_parameters(tmp_path, mo
     result = CliRunner().invoke(cli, [*args, "--start", "2030-01-05"])
     assert result.exit_code == 1 and "no periods in the range" in result.stderr
     assert not (tmp_path / "r.html").exists()
+
+
+def test_a_log_without_labels_still_gets_a_report_with_notes_for_the_missing_pictures(
+    tmp_path, monkeypatch
+):
+    monkeypatch.chdir(ROOT)
+    monkeypatch.delenv("DBMETRICS_PROJECT", raising=False)
+    out = tmp_path / "unlabelled.html"
+    result = CliRunner().invoke(
+        cli,
+        [
+            "--quiet",
+            "report",
+            "--set",
+            "logs=demo_parquet/logs",
+            "--set",
+            "label_col=",
+            "--latest",
+            "2",
+            "-o",
+            str(out),
+        ],
+    )
+    assert result.exit_code == 0, result.output
+    parsed = parse(out)
+    text = " ".join(" ".join(parsed.text).split())
+    assert "No picture of cross-entropy over time: nothing to plot" in text
+    assert "No arrival delay" in text
+    assert all(not_blank(p) for p in images(parsed))  # the label-free pictures still drawn

@@ -16,6 +16,7 @@ import pyarrow as pa
 
 from dbmetrics import __version__
 from dbmetrics.cli.textable import number, safe
+from dbmetrics.errors import DbmetricsError
 from dbmetrics.plots.labels import metric_label
 from dbmetrics.report.gather import ReportData
 
@@ -241,28 +242,33 @@ def _versions(data: ReportData) -> str:
     version = data.version_col
     calibration = data.calibration
     if calibration.num_rows:
-        figure = plots.reliability_figure(calibration, version, (version,), None, data.grain)
         parts.append(
             _figure(
-                figure,
+                lambda: plots.reliability_figure(
+                    calibration, version, (version,), None, data.grain
+                ),
                 "Reliability diagram per version, bins pooled over the range",
                 "Accuracy against confidence per confidence bin; the diagonal is perfect "
                 "calibration, the lower panel each version's share of rows per bin.",
             )
         )
         gaps = plots.confidence_gap(calibration, (version,))
-        figure = plots.trend_figure(gaps, "confidence_gap", version, (version,), data.grain)
-        figure.axes[0].axhline(0, color="#777777", linewidth=0.8, zorder=1)
         parts.append(
             _figure(
-                figure,
+                lambda: plots.trend_figure(gaps, "confidence_gap", version, (version,), data.grain),
                 "Calibration gap over time",
                 "Mean confidence minus accuracy per period: above 0 the version is over-confident.",
+                lambda ax: ax.axhline(0, color="#777777", linewidth=0.8, zorder=1),
             )
         )
-    figure = plots.trend_figure(data.rollup, "cross_entropy", version, (version,), data.grain)
     parts.append(
-        _figure(figure, "Cross-entropy over time", "Mean cross-entropy with 95% intervals.")
+        _figure(
+            lambda: plots.trend_figure(
+                data.rollup, "cross_entropy", version, (version,), data.grain
+            ),
+            "Cross-entropy over time",
+            "Mean cross-entropy with 95% intervals.",
+        )
     )
     return "\n".join(parts)
 
@@ -304,12 +310,8 @@ def _heatmap(data: ReportData) -> str:
 
     rows = (data.version_col, data.segment) if data.segment else (data.version_col,)
     label = metric_label(data.measure)
-    try:
-        figure = plots.heatmap_figure(data.cells, data.measure, rows, data.grain)
-    except Exception as e:  # noqa: BLE001 - a picture that cannot be drawn is named, not fatal
-        return f'<h2 id="heatmap">Drift map</h2><p>No heatmap: {_e(str(e))}</p>'
     return '<h2 id="heatmap">Drift map</h2>' + _figure(
-        figure,
+        lambda: plots.heatmap_figure(data.cells, data.measure, rows, data.grain),
         f"{label[0].upper()}{label[1:]} per period and {' and '.join(rows)}",
         "Each cell compares a period with the reference window; a cross marks a cell flagged "
         "for this measure, a dot a cell flagged only for another reason. White: no rows.",
@@ -320,27 +322,29 @@ def _labels(data: ReportData) -> str:
     from dbmetrics import plots
 
     version = data.version_col
-    figure = plots.trend_figure(data.rollup, "label_coverage", version, (version,), data.grain)
-    figure.axes[0].set_ylim(0, 1.05)
     parts = [
         '<h2 id="labels">Label coverage and arrival</h2>',
         _figure(
-            figure,
+            lambda: plots.trend_figure(
+                data.rollup, "label_coverage", version, (version,), data.grain
+            ),
             "Label coverage over time",
             "Share of each period's rows whose label has arrived. Recent periods are low while "
             "labels are on their way; their labelled metrics rest on fewer rows.",
+            lambda ax: ax.set_ylim(0, 1.05),
         ),
     ]
     if data.labels is not None and data.labels.num_rows:
-        figure = plots.trend_figure(data.labels, "p90_delay_days", version, (version,), data.grain)
-        figure.axes[0].set_ylim(0, None)
         parts.append(
             _figure(
-                figure,
+                lambda: plots.trend_figure(
+                    data.labels, "p90_delay_days", version, (version,), data.grain
+                ),
                 "Label arrival delay over time",
                 "90th percentile of the days from prediction to label, per period (labels "
                 "query); the newest periods look fast only because their slow labels have "
                 "not arrived yet.",
+                lambda ax: ax.set_ylim(0, None),
             )
         )
     else:
@@ -351,9 +355,18 @@ def _labels(data: ReportData) -> str:
     return "\n".join(parts)
 
 
-def _figure(figure, title: str, caption: str) -> str:
+def _figure(draw, title: str, caption: str, adjust=None) -> str:
+    """The picture ``draw()`` makes (its axes passed to ``adjust``), inline with its caption;
+    a short note instead when there is nothing to draw (e.g. no labels for a labelled
+    measure)."""
     from dbmetrics import plots
 
+    try:
+        figure = draw()
+    except DbmetricsError as e:
+        return f"<p>No picture of {_e(title.lower())}: {_e(str(e))}.</p>"
+    if adjust is not None:
+        adjust(figure.axes[0])
     png = base64.b64encode(plots.png_bytes(figure)).decode("ascii")
     return (
         f'<figure><img alt="{_e(title)}" src="data:image/png;base64,{png}">'
