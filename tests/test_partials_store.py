@@ -435,3 +435,20 @@ def test_the_cli_reuses_the_recorded_roles_and_ctrl_c_publishes_nothing(
     assert stopped.exit_code == 130 and "Traceback" not in stopped.output
     assert (tmp_path / "store" / "manifest.json").read_text() == manifest
     assert not list((tmp_path / "store" / ".staging").iterdir())
+
+
+def test_a_day_without_a_state_kind_is_refused_by_queries_and_filled_by_an_update(
+    con, demo_tables, tmp_path, same_table
+):
+    """A kind added to STATE_KINDS after a store was written: its days lack that file."""
+    logs, _ = demo_tables
+    params = {"logs": write(logs, tmp_path / "logs.parquet"), "label_col": ""}
+    store = tmp_path / "store"
+    partials.update(con, params, store)
+    manifest = json.loads((store / "manifest.json").read_text())
+    del manifest["days"]["2026-01-06"]["files"]["class_state"]
+    (store / "manifest.json").write_text(json.dumps(manifest))
+    with pytest.raises(DbmetricsError, match="no `class_state` state for 1 day"):
+        run_query(con, "rollup", {"partials": str(store)})
+    assert partials.update(con, params, store)["days_written"] == 1
+    store_equals_scan(con, same_table, params, store)

@@ -88,8 +88,10 @@ def store_fragments(texts: dict, given: dict | None = None) -> tuple:
     for kind in STATE_KINDS:
         lacking = [k for k, e in manifest["days"].items() if kind.name not in e["files"]]
         if lacking:
-            fragments[kind.name] = None
-            continue
+            raise DbmetricsError(
+                f"partials: the store {s.root} has no `{kind.name}` state for {len(lacking)} "
+                "day(s) (written by an older dbmetrics); `dbmetrics partials update` adds it"
+            )
         fragments[kind.name] = summed(kind, keys, f"partials_{kind.name}")
         bound[f"partials_{kind.name}"] = s.files(kind.name, manifest)
     return fragments, bound

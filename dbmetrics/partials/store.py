@@ -350,8 +350,12 @@ class Publisher:
         self, days: dict, column_roles: dict, logs: str | None = None, stale: dict | None = None
     ) -> int:
         """Publish: the store then holds exactly `days` (key -> {"files": {kind: path} of a
-        day kept as stored, or {} for a staged day, "fingerprint": ... or None}). Returns the
-        new generation."""
+        day kept as stored, or {} for a staged day, "fingerprint": ...}). Returns the new
+        generation.
+
+        A day's fingerprint is what `fingerprint.fingerprints(con, roles)` gives for it (in
+        DuckDB, reading only the time, id and label columns), cut in the store's time zone;
+        None means unknown, and the next `partials update` recomputes that day."""
         with self.store.locked():
             current = self.store.manifest() or {"generation": 0, "days": {}, "retired": []}
             if current["generation"] != self.base:
