@@ -12,13 +12,13 @@ Sums of hashes do not depend on row order or file layout, so a day's fingerprint
 when its rows or labels change and stays put otherwise; it reads the time, id and label
 columns only. (A rewrite that keeps every time, id and label but changes scores is not seen:
 `--since` or `--full` recompute such days.) Days are cut as the saved queries cut them:
-CAST(time AS DATE) in the store's time zone.
+`roles.day` (a TIMESTAMPTZ's local date in the store's time zone).
 """
 
 import itertools
 from dataclasses import dataclass, replace
 
-from dbmetrics.queries.roles import ColumnRoles
+from dbmetrics.queries.roles import ColumnRoles, day
 from dbmetrics.queries.schema import quote
 
 from .manifest import NULL_DAY
@@ -50,10 +50,11 @@ def fingerprints(con, roles: ColumnRoles) -> dict:
     CAST(coalesce(sum(rh), 0) AS VARCHAR) AS rows_hash,
     count(label) AS labels,
     CAST(coalesce(sum(lh) FILTER (WHERE label IS NOT NULL), 0) AS VARCHAR) AS labels_hash
-FROM (SELECT CAST({t} AS DATE) AS day, {row_hash} AS rh, {label} AS label, {label_hash} AS lh
+FROM (SELECT {day(roles, t)} AS day, {row_hash} AS rh, {label} AS label, {label_hash} AS lh
       FROM {roles.logs.sql} AS logs)
 GROUP BY day"""
-    rows = con.execute(sql, roles.logs.bound).fetchall()
+    zone = {"timezone": roles.values["timezone"]}
+    rows = con.execute(sql, {**roles.logs.bound, **bound_in(sql, zone)}).fetchall()
     days = {
         key: Day(key, epoch, {"rows": n, "rows_hash": rh, "labels": nl, "labels_hash": lh})
         for key, epoch, n, rh, nl, lh in rows
@@ -62,14 +63,19 @@ GROUP BY day"""
         idc = quote(roles.id)
         sql = f"""SELECT {day_columns("p.day")}, count(*) AS labels,
     CAST(sum(hash(l.id, l.label)) AS VARCHAR) AS labels_hash
-FROM (SELECT CAST({t} AS DATE) AS day, logs.{idc} AS id FROM {roles.logs.sql} AS logs) AS p
+FROM (SELECT {day(roles, t)} AS day, logs.{idc} AS id FROM {roles.logs.sql} AS logs) AS p
 JOIN (SELECT labels.{idc} AS id, labels.{quote(roles.label)} AS label
       FROM {roles.labels.sql} AS labels) AS l ON p.id = l.id
 GROUP BY p.day"""
-        bound = {**roles.logs.bound, **roles.labels.bound}
+        bound = {**roles.logs.bound, **roles.labels.bound, **bound_in(sql, zone)}
         for key, _, n, lh in con.execute(sql, bound).fetchall():
             days[key].fingerprint.update(labels=n, labels_hash=lh)
     return days
+
+
+def bound_in(sql: str, values: dict) -> dict:
+    """`values` the SQL uses (DuckDB refuses unused bound names)."""
+    return {k: v for k, v in values.items() if f"${k}" in sql}
 
 
 def only_days(roles: ColumnRoles, days: list, zoned: bool) -> tuple:

@@ -147,7 +147,7 @@ class Update:
             self.plan(current)
             self.tables = {}
             if self.recompute:
-                zoned = sources["logs"].type_of(roles.time).startswith("TIMESTAMP WITH")
+                zoned = roles.zoned
                 narrowed, bound = only_days(roles, [current[k] for k in self.recompute], zoned)
                 values = {"bins": convert(rollup.param("bins"), texts["bins"]), **bound}
                 values.update(roles.values)  # $classes, $timezone, $unlabelled_value
