@@ -397,10 +397,10 @@ class Publisher:
                 "stale": {k: v for k, v in (stale or {}).items() if k in out_days},
                 "retired": sorted(before - listed),
             }
+            for rel in set(current["retired"]) - listed:  # before the swap: a kill after
+                unlink_plain(root / rel)  # it leaves them named (retired) for the next one
             write_json(root, "manifest.json", manifest)
             (root / PENDING).unlink(missing_ok=True)
-            for rel in set(current["retired"]) - listed:
-                unlink_plain(root / rel)
             return generation
 
     def close(self) -> None:
