@@ -122,8 +122,8 @@ def same_states(a: Path, b: Path) -> bool:
     if sorted(ma) != sorted(mb):
         return False
     for day, entry in ma.items():
-        for kind, name in entry.items():
-            x, y = pq.read_table(a / name), pq.read_table(b / mb[day][kind])
+        for kind, name in entry["files"].items():
+            x, y = pq.read_table(a / name), pq.read_table(b / mb[day]["files"][kind])
             keys = [(c, "ascending") for c in x.column_names if not c.startswith("sum_")]
             x, y = x.sort_by(keys), y.sort_by(keys)
             if x.schema != y.schema or x.num_rows != y.num_rows:
