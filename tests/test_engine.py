@@ -17,10 +17,10 @@ from dbmetrics.queries import render_query, run_query
 from dbmetrics.queries.engine import BATCH_ROWS
 
 
-def awkward_log(path, n=2 * BATCH_ROWS + 123, seed=5):
+def awkward_log(path, n=2 * BATCH_ROWS + 123, seed=5, ks=(3, 4)):
     """More than two engine batches; ragged K, NULL/NaN/-inf scores, NULL and bad labels."""
     rng = np.random.default_rng(seed)
-    ks = rng.choice([3, 4], n)
+    ks = rng.choice(ks, n)
     logits = [list(rng.normal(size=k) * 3) for k in ks]
     labels = [int(rng.integers(0, k)) for k in ks]
     for i in rng.choice(n, min(300, n // 3), replace=False):
@@ -56,7 +56,10 @@ def awkward_log(path, n=2 * BATCH_ROWS + 123, seed=5):
     return str(path)
 
 
-@pytest.mark.parametrize("query", ["rollup", "calibration", "drift"])
+@pytest.mark.parametrize(
+    "query",
+    ["rollup", "calibration", "drift", "class_metrics", "confusion", "class_calibration"],
+)
 def test_the_engine_equals_the_udf_route(con, tmp_path, query, same_table):
     params = (
         {"logs": awkward_log(tmp_path / "log.parquet"), "segment_cols": "region", "min_rows": "50"}
@@ -65,6 +68,14 @@ def test_the_engine_equals_the_udf_route(con, tmp_path, query, same_table):
     )
     engine = run_query(con, query, params)
     sql, bound = render_query(con, query, params)  # the per-row UDF SQL
+    same_table(con.sql(sql, params=bound).to_arrow_table(), engine)
+
+
+def test_the_engine_equals_the_udf_route_on_two_class_logs(con, tmp_path, same_table):
+    params = {"logs": awkward_log(tmp_path / "log.parquet", ks=(2,)), "segment_cols": "region"}
+    engine = run_query(con, "binary", params)
+    assert engine.num_rows > 0
+    sql, bound = render_query(con, "binary", params)
     same_table(con.sql(sql, params=bound).to_arrow_table(), engine)
 
 

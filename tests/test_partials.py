@@ -18,6 +18,7 @@ from dbmetrics import partials
 from dbmetrics.demo import generate
 from dbmetrics.errors import DbmetricsError
 from dbmetrics.partials import store as store_module
+from dbmetrics.partials.kinds import KIND_NAMES
 from dbmetrics.queries import run_query
 
 
@@ -28,7 +29,10 @@ def demo(tmp_path_factory):
     return {"logs": str(paths["logs"]), "labels": str(paths["labels"]), "id_col": "prediction_id"}
 
 
-@pytest.mark.parametrize("query", ["rollup", "calibration", "drift"])
+@pytest.mark.parametrize(
+    "query",
+    ["rollup", "calibration", "drift", "class_metrics", "confusion", "class_calibration"],
+)
 @pytest.mark.parametrize(
     "stored, asked",
     [
@@ -120,7 +124,7 @@ def test_an_interrupted_update_leaves_the_previous_store(
         return {
             e["files"][k]
             for e in json.loads((store / "manifest.json").read_text())["days"].values()
-            for k in ("state", "class_state")
+            for k in KIND_NAMES
         }
 
     kept = listed()
@@ -151,6 +155,59 @@ def test_bad_stores_and_parameters_get_clear_errors(con, demo, tmp_path):
         partials.update(con, {**demo, "grain": "day"}, tmp_path / "store")
     with pytest.raises(DbmetricsError, match="needs parameter `logs`"):
         run_query(con, "rollup", {})
+
+
+def test_a_two_class_store_gives_the_binary_view_of_the_logs(same_table, con, tmp_path):
+    import numpy as np
+
+    rng = np.random.default_rng(2)
+    n = 3000
+    s = rng.normal(size=n) * 2
+    pq.write_table(
+        pa.table(
+            {
+                "ts": [
+                    dt.date(2026, 3, 2) + dt.timedelta(days=int(d)) for d in rng.integers(0, 20, n)
+                ],
+                "model_version": rng.choice(["v1", "v2"], n),
+                "region": rng.choice(["a", "b"], n),
+                "score": s,
+                "label": (rng.random(n) < 1 / (1 + np.exp(-s))).astype(np.int64),
+            }
+        ),
+        tmp_path / "log.parquet",
+    )
+    roles = {"logs": str(tmp_path / "log.parquet"), "scores_col": "score"}
+    roles["scores_kind"] = "binary_logit"
+    partials.update(con, {**roles, "segment_cols": "region"}, tmp_path / "store")
+    for query in ("binary", "class_metrics", "class_calibration"):
+        direct = run_query(con, query, roles)
+        assert direct.num_rows > 0
+        store = {"partials": str(tmp_path / "store"), "scores_kind": "binary_logit"}
+        same_table(direct, run_query(con, query, store))
+
+
+def test_a_store_of_an_earlier_format_asks_for_an_update_which_migrates_it(
+    same_table, con, demo, tmp_path
+):
+    """Format 2 had no per-class states: its STATE still answers, the per-class views ask for
+    an update, and the update recomputes every day into format 3."""
+    store = tmp_path / "store"
+    partials.update(con, demo, store)
+    manifest = json.loads((store / "manifest.json").read_text())
+    manifest["format"] = "dbmetrics-partials/2"
+    (store / "manifest.json").write_text(json.dumps(manifest))
+    same_table(
+        run_query(con, "calibration", demo), run_query(con, "calibration", {"partials": str(store)})
+    )
+    with pytest.raises(DbmetricsError, match="class_state.*partials update"):
+        run_query(con, "class_metrics", {"partials": str(store)})
+    partials.update(con, demo, store)
+    assert json.loads((store / "manifest.json").read_text())["format"] == "dbmetrics-partials/3"
+    same_table(
+        run_query(con, "class_metrics", demo),
+        run_query(con, "class_metrics", {"partials": str(store)}),
+    )
 
 
 def test_the_cli_builds_shows_and_rolls_up_a_store(demo, tmp_path):

@@ -62,7 +62,18 @@ def logs(tmp_path):
 
 def test_built_in_queries_and_their_header():
     queries = {q.name: q for q in list_queries()}
-    assert set(queries) == {"rollup", "calibration", "drift", "segments", "recalibration", "labels"}
+    assert set(queries) == {
+        "rollup",
+        "calibration",
+        "drift",
+        "segments",
+        "recalibration",
+        "class_metrics",
+        "confusion",
+        "class_calibration",
+        "binary",
+        "labels",
+    }
     grain = queries["rollup"].param("grain")
     assert (grain.type, grain.choices, grain.default, grain.required) == (
         "choice(day|week|month)",

@@ -199,6 +199,39 @@ def coverage(session, settings, by, only, start, end, title, output):
     _write(session, figure, output)
 
 
+@command.command("confusion")
+@click.option(
+    "--top",
+    default=20,
+    show_default=True,
+    type=click.IntRange(1, 200),
+    help="With more than 20 classes: how many of the most frequent confusions to draw.",
+)
+@_plot_options
+@click.pass_obj
+def confusion(session, top, settings, by, only, start, end, title, output):
+    """Confusion matrix from the confusion query: counts and the share of each true class.
+
+    Counts are summed over every period and group in the result (narrow it with --only,
+    --start, --end); up to 20 classes are drawn as two matrices, more as bars of the most
+    frequent confusions. Class names come from the `classes` parameter when set.
+
+    \b
+    Example:
+      dbmetrics plot confusion --only model_version=v2 --set logs=demo_parquet/logs \\
+          --set labels=demo_parquet/labels/labels.parquet --set id_col=prediction_id --output cm.png
+    """
+    from dbmetrics import plots, queries
+
+    table, _, _, _ = _query(session, "confusion", settings, by, only, start, end)
+    info = queries.get_query("confusion", query_dirs=session.query_dirs)
+    params = merge(
+        "confusion", [p.name for p in info.params], session.project, parse_settings(settings)
+    )
+    names = [n.strip() for n in (params.get("classes") or "").split(",") if n.strip()]
+    _write(session, plots.confusion_figure(table, names or None, title, top), output)
+
+
 def _query(session, name, settings, by, only, start, end):
     """Run query ``name`` with the merged parameters; (kept rows, by column, group columns,
     every parameter's value with the defaults)."""

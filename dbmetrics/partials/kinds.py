@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import pyarrow as pa
 
 from dbmetrics.errors import DbmetricsError
+from dbmetrics.queries.class_sums import EXTRA_STATES
 from dbmetrics.queries.engine import partial_states
 from dbmetrics.queries.state_sql import CLASS_STATE_COLUMNS, STATE_COLUMNS
 
@@ -40,6 +41,7 @@ def additive(columns: tuple, keys: tuple) -> tuple:
 STATE_KINDS = (
     StateKind("state", ("bin",), additive(STATE_COLUMNS, ("bin",))),
     StateKind("class_state", ("class",), additive(CLASS_STATE_COLUMNS, ("class",))),
+    *(StateKind(name, keys, sums) for name, (keys, sums) in EXTRA_STATES.items()),
 )
 KIND_NAMES = tuple(k.name for k in STATE_KINDS)
 

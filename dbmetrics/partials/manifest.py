@@ -1,7 +1,8 @@
 """The manifest of a partials store: its format, and the checks that turn a damaged or
 hand-edited manifest into one clear line.
 
-Format version 2 (`"format": "dbmetrics-partials/2"`):
+Format version 3 (`"format": "dbmetrics-partials/3"`; version 2 had the same layout, without
+the per-class states):
 
     generation    whole number, +1 per published update
     column_roles  the column-role parameters the store was built with (and `timezone`)
@@ -15,8 +16,10 @@ Format version 2 (`"format": "dbmetrics-partials/2"`):
 A day key is the day as DuckDB writes a DATE (`2026-01-05`, `12000-01-01`,
 `0044-03-15 (BC)`, `infinity`), or `null` for rows whose time is NULL.
 
-Version 1 stores (no fingerprints, no time zone) are read as they are; the next update
-recomputes every day once and writes version 2.
+Version 1 stores (no fingerprints, no time zone) and version 2 stores (class_state without
+the per-class sums, no class_bin_state, confusion_state, binary_state) are read with their
+STATE only: queries of the other kinds ask for an update, and the next update recomputes
+every day once and writes version 3.
 """
 
 import datetime as dt
@@ -27,7 +30,7 @@ from dbmetrics.errors import DbmetricsError
 from .kinds import KIND_NAMES
 
 PREFIX = "dbmetrics-partials/"
-VERSION = 2
+VERSION = 3
 FORMAT = f"{PREFIX}{VERSION}"
 NULL_DAY = "null"
 DAY_KEY = re.compile(r"null|-?infinity|[0-9]{4,}-[0-9]{2}-[0-9]{2}(?: \(BC\))?")
@@ -86,10 +89,10 @@ def validated(data, where: str) -> dict:
             f"partials: {where} is not a dbmetrics partials manifest (expected format {FORMAT})"
         )
     version = data["format"][len(PREFIX) :]
-    if version not in ("1", "2"):
+    if version not in ("1", "2", "3"):
         raise DbmetricsError(
             f"partials: {where} has format {data['format']}, written by a newer dbmetrics; "
-            f"this one reads {PREFIX}1 and {FORMAT}"
+            f"this one reads {PREFIX}1 to {FORMAT}"
         )
     generation = data.get("generation")
     if type(generation) is not int or generation < 0:
@@ -145,6 +148,8 @@ def day_entry(entry, key: str, version: str, bad) -> dict:
             bad(f"day `{key}` has a malformed `fingerprint`")
     if not isinstance(files, dict) or not files:
         bad(f"day `{key}` lists no files")
+    if version in ("1", "2"):  # only STATE still has the columns of version 3
+        files, fingerprint = {k: v for k, v in files.items() if k == "state"}, None
     for kind, path in files.items():
         match = DAY_FILE.fullmatch(path) if isinstance(path, str) else None
         if kind not in KIND_NAMES or match is None or match.group(1) != kind:

@@ -1,5 +1,6 @@
 """PNG pictures of query results, drawn with matplotlib (the optional extra ``plot``).
 
+    confusion_figure(confusion) -> Figure           counts and row rates (or top confusions), pooled
     reliability_figure(calibration, by) -> Figure   accuracy vs confidence per group, pooled over periods
     trend_figure(result, metric, by, keys) -> Figure   a metric over ``period``, one line per group
     heatmap_figure(drift, measure, rows) -> Figure   a drift measure per period x segment, flags marked
@@ -12,6 +13,7 @@ Importing this package does not import matplotlib; drawing without it raises
 ``DbmetricsError("plotting needs matplotlib: pip install 'dbmetrics[plot]'")``.
 """
 
+from .confusion import confusion_figure
 from .heatmap import heatmap_figure
 from .pooling import Pooled, confidence_gap, pool_bins
 from .reliability import reliability_figure
@@ -25,6 +27,7 @@ __all__ = [
     "Pooled",
     "confidence_gap",
     "heatmap_figure",
+    "confusion_figure",
     "keep_rows",
     "png_bytes",
     "pool_bins",

@@ -19,10 +19,11 @@ from dbmetrics.kernels.distributions import as_distribution
 from dbmetrics.kernels.softmax import softmax
 from dbmetrics.udf_adapters import LOGITS_PAD, PROBS_PAD, ROW_STATS_TYPE, row_stats_struct
 
+from .class_sums import EXTRA_STATES, batch_sums
 from .header import bound_values
 from .roles import KINDS, ColumnRoles
 from .schema import quote
-from .state_sql import nested, predictions, state
+from .state_sql import CLASS_STATE_COLUMNS, class_state, extra_state, nested, predictions, state
 
 BATCH_ROWS = 16384
 BATCH_VALUES = 1 << 21
@@ -32,6 +33,12 @@ ROWS_VIEW = "dbmetrics_row_stats"
 CLASSES_VIEW = "dbmetrics_class_partials"
 STATE_VIEW = "dbmetrics_state"
 CLASS_STATE_VIEW = "dbmetrics_class_state"
+CLASS_KINDS = ("class_state", *EXTRA_STATES)  # the class-level state kinds, in store order
+VIEWS = {
+    "state": STATE_VIEW,
+    "class_state": CLASS_STATE_VIEW,
+    **{kind: f"dbmetrics_{kind}" for kind in EXTRA_STATES},
+}
 KERNELS = {
     "logit_row_stats": (row_stats.logit_row_stats, LOGITS_PAD),
     "prob_row_stats": (row_stats.prob_row_stats, PROBS_PAD),
@@ -71,13 +78,24 @@ def group_ids(columns: list) -> np.ndarray:
     return group
 
 
-def class_partials(batch: pa.RecordBatch, sm, st, distribution, keys: list) -> pa.Table | None:
-    """CLASS_STATE of one batch: per day x keys x class, the sum of predicted probabilities,
-    the rows predicting the class and the rows labelled with it (scored rows only; each group
-    lists classes 0 .. its longest row's K - 1, as unnest(range(len(dist))) does)."""
+def class_partials(
+    batch: pa.RecordBatch,
+    sm,
+    st,
+    distribution,
+    keys: list,
+    kinds=("class_state",),
+    bins=15,
+    is_logits=True,
+) -> dict:
+    """The class-level states of one batch ({kind: pa.Table or None}). CLASS_STATE: per day x
+    keys x class, the sum of predicted probabilities, the rows predicting the class and the
+    rows labelled with it (scored rows; each group lists classes 0 .. its longest row's K - 1,
+    as unnest(range(len(dist))) does), and the evaluated-row sums of class_sums.py; the other
+    kinds come from class_sums.batch_sums."""
     rows = np.flatnonzero(st.score_issue == 0)
     if not len(rows):
-        return None
+        return {}
     p = distribution(sm.values[rows].astype(np.float64))
     k = p.shape[1]
     key_columns = [batch.column(name).take(pa.array(rows)) for name in ["day", *keys]]
@@ -85,6 +103,11 @@ def class_partials(batch: pa.RecordBatch, sm, st, distribution, keys: list) -> p
     order = np.argsort(group, kind="stable")
     starts = np.flatnonzero(np.r_[True, np.diff(group[order]) != 0])
     n_groups = len(starts)
+    out, added = batch_sums(
+        batch, sm, st, p, rows, group, rows[order[starts]], keys, kinds, bins, is_logits
+    )
+    if "class_state" not in kinds:
+        return out
     sums = np.add.reduceat(p[order], starts, axis=0)
     predicted = np.bincount(group * k + st.predicted[rows], minlength=n_groups * k)
     labelled = st.label_issue[rows] == 0
@@ -93,16 +116,18 @@ def class_partials(batch: pa.RecordBatch, sm, st, distribution, keys: list) -> p
     longest = np.maximum.reduceat(sm.lengths[rows][order], starts)
     g, c = np.nonzero(np.arange(k)[None, :] < longest[:, None])
     first = pa.array(rows[order[starts]][g])
-    out = {name: batch.column(name).take(first) for name in ["day", *keys]}
-    out.update(
+    table = {name: batch.column(name).take(first) for name in ["day", *keys]}
+    table.update(
         {
             "class": pa.array(c, pa.int64()),
             "sum_prob": pa.array(sums[g, c]),
             "predicted_rows": pa.array(predicted.reshape(n_groups, k)[g, c]),
             "label_rows": pa.array(labels.reshape(n_groups, k)[g, c]),
+            **{name: pa.array(a[g, c]) for name, a in added.items()},
         }
     )
-    return pa.table(out)
+    out["class_state"] = pa.table(table)
+    return out
 
 
 def compute_states(
@@ -113,8 +138,16 @@ def compute_states(
     classes: bool = False,
 ) -> tuple:
     """(STATE, CLASS_STATE or None) for the log (or the time window): `partial_states`."""
-    states = partial_states(con, roles, values, window=window, classes=classes)
+    kinds = ("class_state",) if classes else ()
+    states = partial_states(con, roles, values, window=window, classes=kinds)
     return states["state"], states.get("class_state")
+
+
+def class_kinds(classes) -> tuple:
+    """The class-level state kinds asked for: True = every one, False = none, or a tuple."""
+    if classes is True:
+        return CLASS_KINDS
+    return tuple(classes or ())
 
 
 def partial_states(
@@ -122,17 +155,19 @@ def partial_states(
     roles: ColumnRoles,
     values: dict,
     window: bool = False,
-    classes: bool = False,
+    classes=False,
 ) -> dict:
-    """Every partial state of the log (or the time window) by name ("state", and
-    "class_state" when `classes`), as Arrow tables: the `predictions` rows streamed through
-    `states_of_rows`."""
+    """Every partial state of the log (or the time window) by name ("state", and the
+    class-level kinds `classes` names: True for all of CLASS_KINDS), as Arrow tables: the
+    `predictions` rows streamed through `states_of_rows`, or, when that stream fails, the
+    UDF route over the same SQL."""
+    kinds = class_kinds(classes)
     source_sql = predictions(roles, window)
     reader = con.sql(source_sql, params=bound_values(source_sql, values)).to_arrow_reader(
         BATCH_ROWS
     )
     try:
-        return states_of_rows(con, roles, reader, values, classes)
+        return states_of_rows(con, roles, reader, values, kinds)
     except (duckdb.Error, pa.ArrowException):
         # An error DuckDB raised while producing the rows (a corrupt file, a bad cast) reaches
         # us wrapped by the Arrow stream, without its context: reading the rows again inside
@@ -155,27 +190,33 @@ def states_of_rows(
     roles: ColumnRoles,
     rows: pa.RecordBatchReader,
     values: dict,
-    classes: bool = False,
+    classes=False,
 ) -> dict:
     """Arrow rows in, partial states out: `rows` holds the `predictions` columns (day, the
-    version and segment columns, scores, label); returns {"state": STATE, "class_state":
-    CLASS_STATE (when `classes`)} summed per day x keys. Memory stays one batch plus the
-    small per-batch class sums. `con` only runs the summing SQL (it may be busy streaming
-    `rows`: a cursor of it is used)."""
+    version and segment columns, scores, label); returns {"state": STATE, kind: ... for the
+    class-level kinds `classes` names} summed per day x keys. Memory stays one batch plus
+    the small per-batch class sums. `con` only runs the summing SQL (it may be busy
+    streaming `rows`: a cursor of it is used)."""
+    kinds = class_kinds(classes)
     kernel_name = KINDS[roles.kind][0]
     kernel, pad = KERNELS[kernel_name]
     distribution = DISTRIBUTIONS[kernel_name]
     keys = [roles.version, *roles.segments]
+    bins = int(values["bins"])
     fields = [f for f in rows.schema if f.name != "scores"] + [pa.field("stats", ROW_STATS_TYPE)]
-    per_batch = []
+    per_batch = {kind: [] for kind in kinds}
 
     def batches():
         for batch in sliced(rows):
             sm = score_matrix(batch.column("scores"), pad, dtype=None)
             y, y_present = integer_column(batch.column("label"))
-            st = kernel(sm.values, sm.present, sm.lengths, y, y_present, int(values["bins"]))
-            if classes:
-                per_batch.append(class_partials(batch, sm, st, distribution, keys))
+            st = kernel(sm.values, sm.present, sm.lengths, y, y_present, bins)
+            if kinds:
+                parts = class_partials(
+                    batch, sm, st, distribution, keys, kinds, bins, distribution is softmax
+                )
+                for kind in kinds:
+                    per_batch[kind].append(parts.get(kind))
             yield with_row_stats(batch, st)
 
     cursor = con.cursor()
@@ -185,17 +226,34 @@ def states_of_rows(
         states = {
             "state": cursor.sql(state_sql, params=bound_values(state_sql, values)).to_arrow_table()
         }
-        if classes:
-            states["class_state"] = summed_classes(cursor, per_batch, roles, rows.schema)
+        for kind in kinds:
+            states[kind] = summed_parts(cursor, kind, per_batch[kind], roles, rows.schema)
         return states
     finally:
         cursor.close()
 
 
-def summed_classes(cursor, per_batch: list, roles: ColumnRoles, schema: pa.Schema) -> pa.Table:
-    """The per-batch class sums added up per day x keys x class."""
-    parts = [t for t in per_batch if t is not None]
-    if not parts:  # no scored row at all: no class rows, with the right columns
+def kind_sql(kind: str, roles: ColumnRoles, window: bool = False) -> str:
+    """The SELECT computing state `kind` with one UDF call per row."""
+    if kind == "state":
+        return state(roles, window)
+    if kind == "class_state":
+        return class_state(roles, window)
+    return extra_state(kind, roles, window)
+
+
+def kind_columns(kind: str) -> tuple:
+    """(own key columns, additive columns) of a class-level state kind."""
+    if kind == "class_state":
+        return ("class",), CLASS_STATE_COLUMNS[2:]
+    return EXTRA_STATES[kind]
+
+
+def summed_parts(cursor, kind: str, parts: list, roles: ColumnRoles, schema: pa.Schema):
+    """The per-batch sums of `kind` added up per day x keys x its own keys."""
+    own, sums = kind_columns(kind)
+    parts = [t for t in parts if t is not None]
+    if not parts:  # no row for this state at all: no rows, with the right columns
         parts = [
             pa.table(
                 {
@@ -203,20 +261,24 @@ def summed_classes(cursor, per_batch: list, roles: ColumnRoles, schema: pa.Schem
                         name: pa.array([], schema.field(name).type)
                         for name in ["day", roles.version, *roles.segments]
                     },
-                    "class": pa.array([], pa.int64()),
-                    "sum_prob": pa.array([], pa.float64()),
-                    "predicted_rows": pa.array([], pa.int64()),
-                    "label_rows": pa.array([], pa.int64()),
+                    **{name: pa.array([], pa.int64()) for name in own},
+                    **{
+                        name: pa.array([], pa.float64() if name.startswith("sum_") else pa.int64())
+                        for name in sums
+                    },
                 }
             )
         ]
     cursor.register(CLASSES_VIEW, pa.concat_tables(parts, promote_options="permissive"))
-    return cursor.sql(f"""SELECT day, {roles.keys}, class,
-    fsum(sum_prob) AS sum_prob,
-    sum(predicted_rows)::BIGINT AS predicted_rows,
-    sum(label_rows)::BIGINT AS label_rows
-FROM {CLASSES_VIEW}
-GROUP BY ALL""").to_arrow_table()
+    columns = ",\n    ".join(
+        f"fsum({c}) AS {c}" if c.startswith("sum_") else f"sum({c})::BIGINT AS {c}" for c in sums
+    )
+    table = cursor.sql(
+        f"SELECT day, {roles.keys}, {', '.join(own)},\n    {columns}\n"
+        f"FROM {CLASSES_VIEW}\nGROUP BY ALL"
+    ).to_arrow_table()
+    cursor.unregister(CLASSES_VIEW)
+    return table
 
 
 def state_route(con, roles: ColumnRoles, bound: dict, classes: bool) -> str:
@@ -246,12 +308,24 @@ def engine_pays(con, roles: ColumnRoles, bound: dict, classes: bool) -> bool:
     return state_route(con, roles, bound, classes) != "udf"
 
 
-def materialized_states(con, roles: ColumnRoles, values: dict, classes: bool) -> dict:
-    """Compute STATE (and CLASS_STATE), register them on `con`, return the SQL reading them."""
-    states = partial_states(con, roles, values, classes=classes)
-    con.register(STATE_VIEW, states["state"])
-    fragments = {"state": f"SELECT * FROM {STATE_VIEW}"}
-    if classes:
-        con.register(CLASS_STATE_VIEW, states["class_state"])
-        fragments["class_state"] = f"SELECT * FROM {CLASS_STATE_VIEW}"
+def sampled_classes(con, roles: ColumnRoles, bound: dict) -> tuple:
+    """(smallest, largest) K of the first 2048 rows' scores; (None, None) when all are NULL."""
+    if roles.kind.startswith("binary_"):
+        return 2, 2
+    sql = (
+        f"SELECT min(len(s)), max(len(s)) FROM (SELECT logs.{quote(roles.scores)} AS s "
+        f"FROM {roles.logs.sql} AS logs LIMIT 2048)"
+    )
+    return con.sql(sql, params=bound_values(sql, bound)).fetchall()[0]
+
+
+def materialized_states(con, roles: ColumnRoles, values: dict, kinds: tuple) -> dict:
+    """Compute STATE and the class-level `kinds`, register them on `con`, return the SQL
+    reading them."""
+    tables = partial_states(con, roles, values, classes=tuple(kinds))
+    fragments = {}
+    for kind, table in tables.items():
+        view = VIEWS[kind]
+        con.register(view, table)
+        fragments[kind] = f"SELECT * FROM {view}"
     return fragments

@@ -8,7 +8,7 @@ from dbmetrics.project import merge, open_project
 
 from . import notes, score_kind
 from .catalog import get_query
-from .engine import CLASS_STATE_VIEW, STATE_VIEW
+from .engine import VIEWS
 from .render import rendered
 from .roles import ColumnRoles
 from .schema import first_line, is_parquet, open_source, shadowing, unreadable
@@ -42,7 +42,7 @@ def run_query(
         raise DbmetricsError(f"query `{name}` failed: {explain(con, params, exc)}") from exc
     finally:
         registered = {row[0] for row in con.sql("SELECT view_name FROM duckdb_views()").fetchall()}
-        for view in {STATE_VIEW, CLASS_STATE_VIEW} & registered:
+        for view in set(VIEWS.values()) & registered:
             con.unregister(view)
     repeated = sorted({c for c in table.column_names if table.column_names.count(c) > 1})
     if repeated:

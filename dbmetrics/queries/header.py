@@ -39,6 +39,9 @@ TYPES = ("source", "column", "columns", "choice", "date", "number", "integer", "
 FRAGMENTS = (
     "state",
     "class_state",
+    "class_bin_state",
+    "confusion_state",
+    "binary_state",
     "predictions",
     "segments",
     "segment_match",

@@ -12,12 +12,18 @@ import duckdb
 from dbmetrics.errors import DbmetricsError
 
 from .catalog import get_query
-from .engine import engine_pays, materialized_states
+from .engine import CLASS_KINDS, engine_pays, materialized_states, sampled_classes
 from .header import COLUMN_MAP, PLACEHOLDER, QueryInfo, bound_values
 from .role_params import REQUIRED_ROLES
 from .roles import ColumnRoles, column_roles, time_zone
 from .schema import open_source, quote
-from .state_sql import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS, fragments
+from .state_sql import (
+    CLASS_STATE_COLUMNS,
+    INTERNAL,
+    STATE_COLUMNS,
+    empty_binary_state,
+    fragments,
+)
 from .values import convert, split_names, with_defaults
 
 ALIAS = re.compile(r"\bAS\s+([a-z_][a-z0-9_]*)\b")  # lower-case aliases; SQL types are upper-case
@@ -136,14 +142,17 @@ def render_info(
         filled.update(fragments(roles, sql_state))
         uses = {name for q in queries for name in PLACEHOLDER.findall(q.body)}
         bound = {k: v for s in sources.values() for k, v in s.bound.items()}
+        if "binary_state" in uses and sampled_classes(con, roles, bound) != (2, 2):
+            # the score histogram exists for two-class logs only (judged on the first rows)
+            filled["binary_state"] = empty_binary_state(roles)
+            uses.discard("binary_state")
+        kinds = tuple(k for k in CLASS_KINDS if k in uses)
         if (
             materialize
-            and "state" in uses
-            and engine_pays(con, roles, bound, "class_state" in uses)
+            and ("state" in uses or kinds)
+            and engine_pays(con, roles, bound, bool(kinds))
         ):
-            filled.update(
-                materialized_states(con, roles, {**values, **bound}, classes="class_state" in uses)
-            )
+            filled.update(materialized_states(con, roles, {**values, **bound}, kinds))
     for p in info.params:
         if p.kind == "source" and p.name in sources:
             filled[p.name] = sources[p.name].sql
@@ -180,6 +189,12 @@ def checked_columns(p, text, sources) -> str:
 
 
 def fill(name: str, filled: dict, info: QueryInfo) -> str:
+    if name in filled and filled[name] is None and name != "predictions":
+        raise DbmetricsError(
+            f"query `{info.name}` needs the partials store's {{{{{name}}}}}, which some of its "
+            "days lack (written by an earlier dbmetrics): run `dbmetrics partials update` "
+            "on the store to add it"
+        )
     if name in filled and filled[name] is None:
         raise DbmetricsError(
             f"query `{info.name}` reads individual predictions ({{{{{name}}}}}); "

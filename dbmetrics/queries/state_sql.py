@@ -11,7 +11,9 @@ STATE: one row per day x version x segments x calibration bin (bin NULL for unsc
     sum_loss, sum_loss_sq, sum_brier, sum_confidence_evaluated  -- over evaluated rows
 CLASS_STATE: one row per day x version x segments x class (scored rows only)
     sum_prob (sum of predicted probabilities), predicted_rows (argmax = class),
-    label_rows (label = class, label in range)
+    label_rows (label = class, label in range), and sums over evaluated rows for the
+    per-class views (support, true positives, loss, top-k; see class_sums.py)
+CLASS_BIN_STATE, CONFUSION_STATE, BINARY_STATE: see class_sums.py
 
 Row categories (exclusive, in this order): missing scores (NULL/empty), invalid scores
 (NaN, +inf logit, all classes masked, probabilities not a distribution), then among scored
@@ -32,6 +34,14 @@ from dbmetrics.kernels.row_stats import (
 )
 from dbmetrics.udf_adapters import ROW_STATS_TYPE
 
+from .class_sums import (
+    CLASS_COLUMNS_ADDED,
+    EXTRA_SQL,
+    EXTRA_STATES,
+    LABEL_RANK_SQL,
+    TOP_K,
+    evaluated_rows_sql,
+)
 from .roles import KINDS, ColumnRoles, class_index, day, day_start, key_fragments
 from .schema import quote
 
@@ -54,8 +64,27 @@ STATE_COLUMNS = (
     "sum_brier",
     "sum_confidence_evaluated",
 )
-CLASS_STATE_COLUMNS = ("day", "class", "sum_prob", "predicted_rows", "label_rows")
-INTERNAL = ("scores", "label", "stats", "evaluated", "dist", "prob", "predicted", "label_ok")
+CLASS_STATE_COLUMNS = (
+    "day",
+    "class",
+    "sum_prob",
+    "predicted_rows",
+    "label_rows",
+    *CLASS_COLUMNS_ADDED,
+)
+INTERNAL = (
+    "scores",
+    "label",
+    "stats",
+    "evaluated",
+    "dist",
+    "prob",
+    "predicted",
+    "label_ok",
+    "loss",
+    "label_rank",
+    *{c for _, (keys, sums) in EXTRA_STATES.items() for c in keys + sums},
+)
 
 
 def nested(sql: str) -> str:
@@ -213,20 +242,49 @@ def class_state(roles: ColumnRoles, window: bool = False) -> str:
     dist = KINDS[roles.kind][1]
     scored = (
         f"SELECT day, {roles.keys}, label, stats.predicted AS predicted,\n"
-        f"       stats.label_issue = 0 AS label_ok, {dist}(scores) AS dist\n"
+        f"       stats.label_issue = 0 AS label_ok, stats.loss AS loss,\n"
+        f"       coalesce(stats.label_issue = 0 AND isfinite(stats.loss), false) AS evaluated,\n"
+        f"       {dist}(scores) AS dist\n"
         f"FROM {nested(row_stats(roles, window))}\nWHERE stats.score_issue = 0"
     )
     per_class = (
-        f"SELECT day, {roles.keys}, label, predicted, label_ok,\n"
+        f"SELECT day, {roles.keys}, label, predicted, label_ok, evaluated, loss,\n"
+        f"       CASE WHEN evaluated THEN {LABEL_RANK_SQL} END AS label_rank,\n"
         f"       unnest(range(len(dist))) AS class, unnest(dist) AS prob\n"
         f"FROM {nested(scored)}"
+    )
+    top = "".join(
+        f"\n    count(*) FILTER (WHERE evaluated AND class = label AND label_rank < {k})"
+        f" AS top{k}_rows,"
+        for k in TOP_K
     )
     return f"""SELECT day, {roles.keys}, class,
     fsum(prob) AS sum_prob,
     count(*) FILTER (WHERE class = predicted) AS predicted_rows,
-    count(*) FILTER (WHERE class = label AND label_ok) AS label_rows
+    count(*) FILTER (WHERE class = label AND label_ok) AS label_rows,
+    count(*) FILTER (WHERE evaluated AND class = label) AS support_rows,
+    count(*) FILTER (WHERE evaluated AND class = predicted) AS predicted_evaluated_rows,
+    count(*) FILTER (WHERE evaluated AND class = label AND class = predicted) AS true_positive_rows,
+    coalesce(fsum(loss) FILTER (WHERE evaluated AND class = label), 0) AS sum_class_loss,
+    coalesce(fsum(prob) FILTER (WHERE evaluated), 0) AS sum_prob_evaluated,{top.rstrip(",")}
 FROM {nested(per_class)}
 GROUP BY ALL"""
+
+
+def extra_state(kind: str, roles: ColumnRoles, window: bool = False) -> str:
+    """CLASS_BIN_STATE, CONFUSION_STATE or BINARY_STATE (class_sums.py) as a SELECT."""
+    evaluated = nested(evaluated_rows_sql(roles, nested(row_stats(roles, window))))
+    return EXTRA_SQL[kind](roles, evaluated)
+
+
+def empty_binary_state(roles: ColumnRoles) -> str:
+    """BINARY_STATE's columns and no rows, for logs that are not two-class."""
+    keys, sums = EXTRA_STATES["binary_state"]
+    columns = ", ".join(
+        f"CAST(NULL AS {'DOUBLE' if c.startswith('sum_') else 'BIGINT'}) AS {c}"
+        for c in keys + sums
+    )
+    return f"SELECT day, {roles.keys}, {columns}\nFROM {nested(predictions(roles))}\nLIMIT 0"
 
 
 def fragments(roles: ColumnRoles, sql_state: bool = False) -> dict:
@@ -251,5 +309,9 @@ def fragments(roles: ColumnRoles, sql_state: bool = False) -> dict:
         **key_fragments(roles.version, roles.segments),
         "state": textwrap.indent(state(roles, rows=rows), "    ").lstrip(),
         "class_state": textwrap.indent(class_state(roles), "    ").lstrip(),
+        **{
+            kind: textwrap.indent(extra_state(kind, roles), "    ").lstrip()
+            for kind in EXTRA_STATES
+        },
         "predictions": textwrap.indent(predictions(roles), "    ").lstrip(),
     }

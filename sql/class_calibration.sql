@@ -1,0 +1,55 @@
+-- name: class_calibration
+-- summary: Class-wise reliability-diagram data per period x version (x segment) x class: for each non-empty bin of the class's predicted probability, its rows, mean probability, label frequency and gap, with the class's calibration error; for a two-class model, class 1 is the positive-class reliability curve.
+-- param logs (source): prediction log: a Parquet file, glob or (hive-partitioned) folder, or a table/view name; required unless partials is set
+-- param time_col (column, default ts): prediction time, DATE or TIMESTAMP; its day is CAST(time AS DATE)
+-- param scores_col (column, default logits): the model's scores: a numeric list per row (one number for binary_* kinds)
+-- param scores_kind (choice(logits|probs|binary_logit|binary_prob), default logits): logits (softmax taken) or probabilities (checked, renormalised); binary_logit s -> [0, s], binary_prob p -> [1-p, p]
+-- param label_col (column, default label): true class: 0-based index, or a name listed in classes; NULL = not yet labelled; empty = no labels
+-- param version_col (column, default model_version): model version column
+-- param segment_cols (columns): comma-separated segment columns to group by (none by default)
+-- param grain (choice(day|week|month), default week): period length; weeks start on Monday
+-- param labels (source): separate label table (path or table) joined on id_col; its label_col holds the labels
+-- param id_col (column): prediction id present in both logs and labels (needed with labels)
+-- param classes (text): class names in class-index order, comma-separated, for labels stored as text; an unknown name is a bad label
+-- param bins (integer(1..1000), default 15): equal-width confidence bins, bin m holds m/B < c <= (m+1)/B (0 in bin 0)
+-- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column roles must cover version_col and segment_cols
+-- param only_class (integer(0..)): keep only this class (e.g. 1: a binary model's positive-class reliability curve)
+-- output period: first day of the period
+-- output class: 0-based class index
+-- output bin: 0-based bin of p(class); bin m holds m/B < p <= (m+1)/B (p = 0 in bin 0, as sklearn calibration_curve)
+-- output bin_lower: m / B
+-- output bin_upper: (m + 1) / B
+-- output rows: evaluated rows whose p(class) falls in the bin; empty bins are left out
+-- output mean_probability: mean p(class) in the bin (calibration_curve's prob_pred)
+-- output label_frequency: share of the bin's rows labelled with the class (calibration_curve's prob_true)
+-- output gap: label_frequency - mean_probability (negative = the class is over-predicted)
+-- output evaluated_rows: n, evaluated rows of the whole period x version x segment
+-- output calibration_error: the class's calibration error, sum over bins of rows/n * |gap|; averaged over classes it is the class-wise ECE of Kull et al. (2019) (class_metrics' macro row)
+-- output max_gap: max over the class's non-empty bins of |gap|
+-- note: rows are the evaluated rows (scored, label in [0, K), finite loss); every evaluated row falls in one bin of every class.
+-- example: dbmetrics run class_calibration --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set grain=month --set bins=10 --set only_class=1
+WITH
+class_bin_state AS (
+    {{class_bin_state}}
+),
+by_bin AS (
+    SELECT date_trunc($grain, day)::DATE AS period, {{version_col}}{{segments}}, class, bin,
+           sum(rows) AS rows, sum(label_rows) AS labelled, sum(sum_prob) AS prob
+    FROM class_bin_state
+    WHERE $only_class IS NULL OR class = $only_class
+    GROUP BY ALL
+)
+SELECT
+    period, {{version_col}}{{segments}}, class, bin,
+    bin / $bins AS bin_lower,
+    (bin + 1) / $bins AS bin_upper,
+    rows::BIGINT AS rows,
+    prob / rows AS mean_probability,
+    labelled / rows AS label_frequency,
+    (labelled - prob) / rows AS gap,
+    (sum(rows) OVER by_class)::BIGINT AS evaluated_rows,
+    sum(abs(labelled - prob)) OVER by_class / sum(rows) OVER by_class AS calibration_error,
+    max(abs(labelled - prob) / rows) OVER by_class AS max_gap
+FROM by_bin
+WINDOW by_class AS (PARTITION BY period, {{version_col}}{{segments}}, class)
+ORDER BY ALL
