@@ -11,7 +11,8 @@
 -- output cross_entropy_se: standard error of that mean, sqrt(s^2 / n) with the sample variance s^2 (n - 1) from the sum and sum of squares; NULL for n < 2
 -- output perplexity: exp(cross_entropy)
 -- output accuracy: share of evaluated rows whose predicted class (first maximum) is the label
--- output brier: mean multi-class Brier score sum_j (p_j - [j = label])^2, range [0, 2]
+-- output brier: mean Brier score as sklearn.metrics.brier_score_loss: for a two-class cell (binary_* logs, two-class lists) the positive class's (p1 - label)^2, range [0, 1]; otherwise brier_multiclass
+-- output brier_multiclass: mean multi-class Brier score sum_j (p_j - [j = label])^2 (Brier 1950), range [0, 2]; twice brier in a two-class cell
 -- output ece: sum over confidence bins of |correct - sum of confidence| / n = sum_b n_b/n |acc_b - conf_b| (top-label, evaluated rows, empty bins contribute 0)
 -- output mean_confidence: mean top-label probability over scored rows (label-free)
 -- output mean_entropy: mean Shannon entropy (nats) of the predicted distribution over scored rows (label-free)
@@ -19,6 +20,13 @@
 -- output invalid_scores: rows whose scores are unusable (NaN, +inf logit, all classes masked, probabilities not a distribution)
 -- output bad_labels: scored rows with a label outside [0, K), a class name not in classes, or conflicting late labels
 -- output infinite_loss_rows: scored, validly labelled rows whose true class has probability 0 (counted, never averaged in)
+-- output base_rate: two-class cells: share of evaluated rows labelled 1 (the positive class); NULL otherwise (as every column below)
+-- output mean_positive_probability: two-class cells: mean predicted probability of class 1, to compare with base_rate
+-- output roc_auc: two-class cells: ROC AUC from the score histogram (see the binary query), with roc_auc_bound
+-- output roc_auc_bound: the largest error the score binning can add to roc_auc
+-- output average_precision: two-class cells: average precision (PR AUC) from the score histogram
+-- output average_precision_bound: the largest error the score binning can add to average_precision
+-- note: two-class columns come from the binary query (its notes give the binning and the bounds); they are NULL for logs with more than two classes, and a cell counts as two-class when all its evaluated rows have two classes.
 -- note: rows = missing_scores + invalid_scores + scored rows; scored rows = unlabelled + bad_labels + infinite_loss_rows + evaluated_rows.
 -- show: period, version_col, segment_cols, rows, label_coverage, cross_entropy, cross_entropy_se, accuracy, ece, brier, mean_entropy, mean_confidence, evaluated_rows, missing_scores, invalid_scores, bad_labels, infinite_loss_rows
 -- example: dbmetrics run rollup --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set segment_cols=region --set grain=month
@@ -40,6 +48,19 @@ totals AS (
            sum(COLUMNS(* EXCLUDE (period, bin, {{version_col}}{{segments}})))
     FROM by_bin
     GROUP BY ALL
+),
+-- The two-class view of each cell (no rows for logs with more than two classes).
+two_class AS (
+    {{query:binary}}
+),
+cells AS (
+    SELECT cur.*, ref.evaluated_rows AS two_class_rows, ref.brier AS positive_brier,
+           ref.base_rate, ref.mean_probability AS mean_positive_probability, ref.roc_auc,
+           ref.roc_auc_bound, ref.average_precision, ref.average_precision_bound
+    FROM totals AS cur
+    LEFT JOIN two_class AS ref
+        ON cur.period = ref.period AND cur.{{version_col}} IS NOT DISTINCT FROM ref.{{version_col}}
+       AND {{segment_match}}
 )
 SELECT
     period, {{version_col}}{{segments}},
@@ -53,13 +74,17 @@ SELECT
              / (evaluated_rows - 1) / evaluated_rows) END AS cross_entropy_se,
     exp(sum_loss / nullif(evaluated_rows, 0)) AS perplexity,
     correct_rows / nullif(evaluated_rows, 0) AS accuracy,
-    sum_brier / nullif(evaluated_rows, 0) AS brier,
+    CASE WHEN two_class_rows = evaluated_rows THEN positive_brier
+         ELSE sum_brier / nullif(evaluated_rows, 0) END AS brier,
+    sum_brier / nullif(evaluated_rows, 0) AS brier_multiclass,
     calibration_gap / nullif(evaluated_rows, 0) AS ece,
     sum_confidence / nullif(scored_rows, 0) AS mean_confidence,
     sum_entropy / nullif(scored_rows, 0) AS mean_entropy,
     missing_scores::BIGINT AS missing_scores,
     invalid_scores::BIGINT AS invalid_scores,
     bad_labels::BIGINT AS bad_labels,
-    infinite_loss_rows::BIGINT AS infinite_loss_rows
-FROM totals
+    infinite_loss_rows::BIGINT AS infinite_loss_rows,
+    base_rate, mean_positive_probability, roc_auc, roc_auc_bound, average_precision,
+    average_precision_bound
+FROM cells
 ORDER BY ALL

@@ -136,3 +136,28 @@ def test_a_log_with_more_than_two_classes_keeps_no_histogram(con, tmp_path):
     z = np.random.default_rng(1).normal(size=(50, 3))
     log = write_log(tmp_path / "log.parquet", z, [0, 1] * 25, pa.list_(pa.float64()))
     assert run_query(con, "binary", {"logs": log, "scores_col": "score"}).num_rows == 0
+
+
+def test_the_rollup_reports_the_binary_view_and_brier_as_sklearn(con, cancer_log):
+    params, p1, s, y = cancer_log
+    (row,) = run_query(con, "rollup", params).to_pylist()
+    (binary,) = run_query(con, "binary", params).to_pylist()
+    assert row["brier"] == pytest.approx(brier_score_loss(y, p1), rel=1e-12)  # sklearn.metrics
+    # Brier (1950) summed over both classes: exactly twice the positive-class form
+    assert row["brier_multiclass"] == pytest.approx(2 * brier_score_loss(y, p1), rel=1e-9)
+    for name in ("base_rate", "roc_auc", "roc_auc_bound", "average_precision"):
+        assert row[name] == binary[name], name
+    assert row["mean_positive_probability"] == binary["mean_probability"]
+    assert abs(row["roc_auc"] - roc_auc_score(y, s)) <= row["roc_auc_bound"] + 1e-15
+
+
+def test_a_multiclass_rollup_keeps_brier_as_the_sum_and_no_binary_columns(con, tmp_path):
+    z = np.random.default_rng(1).normal(size=(60, 3))
+    y = np.arange(60) % 3
+    log = write_log(tmp_path / "log.parquet", z, y, pa.list_(pa.float64()))
+    (row,) = run_query(con, "rollup", {"logs": log, "scores_col": "score"}).to_pylist()
+    p = special.softmax(z, axis=1)
+    # sklearn.metrics.brier_score_loss with three classes: the multi-class sum (Brier 1950)
+    expected = brier_score_loss(y, p, labels=[0, 1, 2])
+    assert row["brier"] == row["brier_multiclass"] == pytest.approx(expected, rel=1e-12)
+    assert row["roc_auc"] is None and row["base_rate"] is None

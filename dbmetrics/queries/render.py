@@ -69,11 +69,7 @@ def rendered(
     inspect(con, roles): called once the column roles are checked against the logs, before
     any state is computed (execute.py looks at a sample of the scores there)."""
     info = get_query(name, query_dirs)
-    included = [
-        get_query(n[len("query:") :], query_dirs)
-        for n in PLACEHOLDER.findall(info.body)
-        if n.startswith("query:")
-    ]
+    included = list(included_queries(info, query_dirs).values())
     for inner in included:
         missing = [p.name for p in inner.params if p.name not in {q.name for q in info.params}]
         if missing:
@@ -84,6 +80,21 @@ def rendered(
     return render_info(
         con, info, params, {f"query:{q.name}": q for q in included}, materialize, inspect, sql_state
     )
+
+
+def included_queries(info: QueryInfo, query_dirs=None, outer: tuple = ()) -> dict:
+    """{name: QueryInfo} of every query `info` includes with {{query:NAME}}, directly or
+    through another included query, innermost last (so they are filled in reverse)."""
+    found = {}
+    for placeholder in PLACEHOLDER.findall(info.body):
+        if not placeholder.startswith("query:"):
+            continue
+        inner = get_query(placeholder[len("query:") :], query_dirs)
+        if inner.name in (*outer, info.name):
+            raise DbmetricsError(f"{info.path}: includes query `{inner.name}` within itself")
+        found[inner.name] = inner
+        found.update(included_queries(inner, query_dirs, (*outer, info.name)))
+    return found
 
 
 def render_info(
@@ -159,7 +170,7 @@ def render_info(
             values.update(sources[p.name].bound)
         elif p.kind in ("column", "columns") and (p.name not in filled or p.sources):
             filled[p.name] = checked_columns(p, texts[p.name], sources)
-    for key, inner in included.items():
+    for key, inner in reversed(included.items()):  # innermost first
         filled[key] = PLACEHOLDER.sub(
             lambda m, inner=inner: fill(m.group(1), filled, inner), inner.body
         )
