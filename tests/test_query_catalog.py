@@ -120,7 +120,8 @@ def test_unknown_query_lists_the_names():
     with pytest.raises(
         DbmetricsError,
         match="no saved query `rolup`; queries are: "
-        "calibration, drift, labels, recalibration, rollup, segments",
+        "binary, calibration, class_calibration, class_metrics, confusion, drift, labels, "
+        "recalibration, rollup, segments",
     ):
         get_query("rolup")
 
