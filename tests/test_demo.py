@@ -217,6 +217,20 @@ def test_alpine_predictions_shift_from_week_14_and_other_regions_do_not(rows):
     assert scored(rows, alpine & post)[2].mean() > scored(rows, alpine & ~post & v2)[2].mean() + 0.1
 
 
+def test_arrived_late_recall_collapses_in_east_from_week_17_and_nowhere_else(rows):
+    late = rows["label"] == CLASSES.index("arrived_late")
+    east, post = rows["region"] == "east", rows["week"] >= 17
+    v2 = rows["version"] == "v2"
+
+    def recall(mask):
+        return scored(rows, mask & late)[1].mean()
+
+    assert recall(east & ~post & v2) > 0.55 and recall(east & post) < 0.3
+    assert recall(~east & post) > 0.55 and abs(recall(~east & post) - recall(~east & ~post)) < 0.1
+    other = (rows["label"] >= 0) & ~late  # the other classes in east keep their recall
+    assert scored(rows, east & post & other)[1].mean() > 0.7
+
+
 def test_labels_arrive_2_to_10_days_later_and_before_the_as_of_date(rows):
     labelled = rows["label"] >= 0
     delay = rows["labelled_at"][labelled] - rows["ts"][labelled]

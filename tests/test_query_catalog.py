@@ -197,7 +197,19 @@ def test_a_query_can_include_another(tmp_path, logs):
     assert len(run_query(con, "wrapped", {"logs": logs, "min_rows": "1"}, dirs)) == 2
 
 
-@pytest.mark.parametrize("query", ["rollup", "calibration", "drift", "segments", "recalibration"])
+@pytest.mark.parametrize(
+    "query",
+    [
+        "rollup",
+        "calibration",
+        "drift",
+        "segments",
+        "recalibration",
+        "class_metrics",
+        "confusion",
+        "class_calibration",
+    ],
+)
 def test_header_example_runs_on_the_demo_logs(query, monkeypatch):
     """The `-- example:` line is a working command (run from the repository root)."""
     root = Path(__file__).resolve().parents[1]

@@ -201,6 +201,12 @@ def coverage(session, settings, by, only, start, end, title, output):
 
 @command.command("confusion")
 @click.option(
+    "--class-names",
+    metavar="NAME0,NAME1,...",
+    help="Class names in class-index order for the axes (default: the `classes` parameter, "
+    "else the indices).",
+)
+@click.option(
     "--top",
     default=20,
     show_default=True,
@@ -209,7 +215,7 @@ def coverage(session, settings, by, only, start, end, title, output):
 )
 @_plot_options
 @click.pass_obj
-def confusion(session, top, settings, by, only, start, end, title, output):
+def confusion(session, class_names, top, settings, by, only, start, end, title, output):
     """Confusion matrix from the confusion query: counts and the share of each true class.
 
     Counts are summed over every period and group in the result (narrow it with --only,
@@ -218,8 +224,10 @@ def confusion(session, top, settings, by, only, start, end, title, output):
 
     \b
     Example:
-      dbmetrics plot confusion --only model_version=v2 --set logs=demo_parquet/logs \\
-          --set labels=demo_parquet/labels/labels.parquet --set id_col=prediction_id --output cm.png
+      dbmetrics plot confusion --only region=east --start 2026-04-27 --set logs=demo_parquet/logs \\
+          --set labels=demo_parquet/labels/labels.parquet --set id_col=prediction_id \\
+          --class-names damaged,wrong_size,arrived_late,not_as_described,changed_mind,other \\
+          --output cm.png
     """
     from dbmetrics import plots, queries
 
@@ -228,7 +236,8 @@ def confusion(session, top, settings, by, only, start, end, title, output):
     params = merge(
         "confusion", [p.name for p in info.params], session.project, parse_settings(settings)
     )
-    names = [n.strip() for n in (params.get("classes") or "").split(",") if n.strip()]
+    text = class_names or params.get("classes") or ""
+    names = [n.strip() for n in text.split(",") if n.strip()]
     _write(session, plots.confusion_figure(table, names or None, title, top), output)
 
 

@@ -72,6 +72,15 @@ EVENT_WEEK = 14
 EVENT_MULT = np.array([1.5, 0.7, 1.0, 7.0, 0.7, 1.0])
 EVENT_SIGNAL = 0.9
 
+#: Planted event (c): from week CARRIER_WEEK a new parcel carrier in CARRIER_REGION words
+#: its delay notices so that the model no longer recognises CARRIER_CLASS there: those
+#: returns keep only CARRIER_SIGNAL of their signal, so that class's recall collapses in
+#: that region while the class mix and every other region stay as they were.
+CARRIER_REGION = REGIONS.index("east")
+CARRIER_CLASS = CLASSES.index("arrived_late")
+CARRIER_WEEK = 17
+CARRIER_SIGNAL = 0.2
+
 #: Labels arrive uniformly 2-10 days after the prediction; some never do.
 LABEL_DELAY_DAYS = (2.0, 10.0)
 NEVER_LABELLED = 0.05

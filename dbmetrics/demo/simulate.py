@@ -90,6 +90,8 @@ def simulate_day(rng: np.random.Generator, day_index: int, day: date, rows: int,
     y = _sample_rows(mix / mix.sum(axis=1, keepdims=True), rng.random(rows))
 
     signal = sc.SIGNAL * sc.CHANNEL_SIGNAL[channel] * np.where(event, sc.EVENT_SIGNAL, 1.0)
+    carrier = (region == sc.CARRIER_REGION) & (week >= sc.CARRIER_WEEK) & (y == sc.CARRIER_CLASS)
+    signal *= np.where(carrier, sc.CARRIER_SIGNAL, 1.0)
     signal *= np.where(v2, sc.V2_SIGNAL_GAIN, 1.0)
     features = rng.standard_normal((rows, sc.K))
     features[np.arange(rows), y] += signal

@@ -135,7 +135,8 @@ def _heatmap(ax, shade: np.ndarray, numbers: np.ndarray, names: list, fmt, unit:
                     color="white" if dark else "black",
                     fontweight="bold" if t == p else "normal",
                 )
-    ax.set_xticks(range(k), names, fontsize=size, rotation=90 if k > 8 else 0)
+    long = k > 8 or max(len(n) for n in names) > 4
+    ax.set_xticks(range(k), names, fontsize=size, rotation=90 if long else 0)
     ax.set_yticks(range(k), names, fontsize=size)
     ax.set_xlabel("predicted class", fontsize=8)
     ax.set_ylabel("true class", fontsize=8)
