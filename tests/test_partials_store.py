@@ -21,6 +21,7 @@ import pytest
 from dbmetrics import partials
 from dbmetrics.demo import generate
 from dbmetrics.errors import DbmetricsError
+from dbmetrics.partials.kinds import KIND_NAMES
 from dbmetrics.partials.store import Publisher, Store
 from dbmetrics.queries import run_query
 
@@ -186,7 +187,7 @@ def test_a_publish_by_another_writer_replaces_its_days(con, demo_tables, tmp_pat
     days = {k: dict(e) for k, e in manifest["days"].items()}
     day = sorted(days)[3]
     with Publisher(s, manifest["generation"]) as pub:
-        for kind in ("state", "class_state"):
+        for kind in KIND_NAMES:
             copy = tmp_path / f"{kind}.parquet"
             pq.write_table(pq.read_table(store / days[day]["files"][kind]), copy)
             pub.stage_file(kind, day, copy)
@@ -400,7 +401,7 @@ def test_a_format_1_store_is_read_and_migrated(con, demo_tables, tmp_path, same_
     (store / "manifest.json").write_text(json.dumps(old))
     store_equals_scan(con, same_table, params, store)
     assert partials.update(con, params, store)["days_written"] == 70
-    assert Store(store).manifest()["format"] == "dbmetrics-partials/2"
+    assert Store(store).manifest()["format"] == "dbmetrics-partials/3"
 
 
 def test_the_cli_reuses_the_recorded_roles_and_ctrl_c_publishes_nothing(

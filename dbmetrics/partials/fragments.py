@@ -87,6 +87,18 @@ def store_fragments(texts: dict, given: dict | None = None) -> tuple:
     bound = {}
     for kind in STATE_KINDS:
         lacking = [k for k, e in manifest["days"].items() if kind.name not in e["files"]]
+        if lacking and kind.name == "binary_state" and fragments.get("state"):
+            # a store written before the score histogram: the rollup still answers, without
+            # its two-class columns, until the next update adds the histogram
+            fragments[kind.name] = (
+                f"SELECT day, {keys}, "
+                + ", ".join(
+                    f"CAST(NULL AS {'DOUBLE' if c.startswith('sum_') else 'BIGINT'}) AS {c}"
+                    for c in (*kind.keys, *kind.columns)
+                )
+                + f"\nFROM ({fragments['state']})\nLIMIT 0"
+            )
+            continue
         if lacking:
             raise DbmetricsError(
                 f"partials: the store {s.root} has no `{kind.name}` state for {len(lacking)} "
