@@ -25,6 +25,7 @@
 -- output average_precision_bound: the largest error the binning can add to average_precision: per bin, its share of positives x the range of precision its rows could reach in any order inside the bin
 -- note: scores are binned into 4096 equal-width bins of the log-odds log(p1 / p0) (z1 - z0 for logits) on [-16, 16], outside values in the end bins: AUC and average precision are rank statistics, so they are computed from summed histograms at any grain or segment set, within the bounds reported beside them. The bounds are 0 when no bin holds both a positive and a negative (and, for average precision, no bin holds more than one positive).
 -- note: logs with more than two classes give no rows (their histogram is not kept); use class_metrics and class_calibration.
+-- show: period, version_col, segment_cols, evaluated_rows, base_rate, mean_probability, brier, roc_auc, roc_auc_bound, average_precision, average_precision_bound, positives
 -- example: dbmetrics run binary --set logs=scores.parquet --set scores_col=score --set scores_kind=binary_prob
 WITH
 binary_state AS (

@@ -27,6 +27,7 @@
 -- output calibration_error: the class's calibration error, sum over bins of rows/n * |gap|; averaged over classes it is the class-wise ECE of Kull et al. (2019) (class_metrics' macro row)
 -- output max_gap: max over the class's non-empty bins of |gap|
 -- note: rows are the evaluated rows (scored, label in [0, K), finite loss); every evaluated row falls in one bin of every class.
+-- show: period, version_col, segment_cols, class, bin, rows, mean_probability, label_frequency, gap, calibration_error, max_gap
 -- example: dbmetrics run class_calibration --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set grain=month --set bins=10 --set only_class=1
 WITH
 class_bin_state AS (

@@ -31,6 +31,7 @@
 -- note: rows are the evaluated rows (scored, label in [0, K), finite loss), as the rollup's accuracy; ties between probabilities go to the lowest class index, as argmax.
 -- note: averages follow scikit-learn precision_recall_fscore_support: macro and weighted rows average the classes that occur as a label or a prediction in the cell, an undefined precision or recall counting as 0 (its zero_division default); the macro row's cross_entropy and top-k recall average the classes with support.
 -- note: calibration uses `bins` equal-width bins of each class's probability, right-closed with 0 in bin 0 (as sklearn.calibration.calibration_curve); a small cell shows a positive calibration error by chance.
+-- show: period, version_col, segment_cols, class, average, support, recall, precision, f1, mean_probability, label_frequency, cross_entropy, calibration_error, top3_recall, predicted_rows, correct_rows, top5_recall
 -- example: dbmetrics run class_metrics --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set grain=month
 WITH
 class_state AS (

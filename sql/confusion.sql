@@ -20,6 +20,7 @@
 -- output label_rows: evaluated rows with this label in the cell (the row of the matrix)
 -- output rate: rows / label_rows, the row-normalised matrix (on the diagonal: the class's recall)
 -- note: rows are the evaluated rows (scored, label in [0, K), finite loss), as the rollup's accuracy; sum over the diagonal / sum of rows = accuracy.
+-- show: period, version_col, segment_cols, label, predicted, rows, rate, label_rows
 -- example: dbmetrics run confusion --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set grain=month
 WITH
 confusion_state AS (

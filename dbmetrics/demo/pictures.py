@@ -15,7 +15,7 @@ import sys
 import tempfile
 from pathlib import Path
 
-from .scenario import RETAILER
+from .scenario import CLASSES, RETAILER
 
 PROJECT = "demo_parquet/dbmetrics.toml"
 BOTH_RUN = ["--start", "2026-03-02", "--end", "2026-03-23"]  # weeks 9-12: v1 and v2 side by side
@@ -29,6 +29,11 @@ COMMANDS = {
         "--only", "model_version=v2", *V2_REFERENCE,
     ],
     "cross_entropy_by_version.png": ["plot", "trend", "--metric", "cross_entropy"],
+    "confusion.png": [
+        "plot", "confusion", "--only", "region=east", "--start", "2026-04-27",
+        "--class-names", ",".join(CLASSES),
+        "--title", "Confusion matrix, east region, weeks 17-26 (invented demo data)",
+    ],
 }  # fmt: skip
 REPORT = [
     "report", "--segment", "region",
