@@ -61,7 +61,7 @@ def test_at_100_columns_the_rollup_table_fits_and_says_what_it_left_out(invoke):
     assert lines[0].split()[:4] == ["period", "model_version", "rows", "label_coverage"]
     count = next(i for i, line in enumerate(lines) if re.fullmatch(r"\(\d+ rows\)", line))
     note = " ".join(lines[count + 1 :])
-    assert "of 18 columns not shown:" in note
+    assert "of 25 columns not shown:" in note
     assert "--all-columns" in note and "--columns" in note
     left_out = note.split("not shown: ")[1].split(". See")[0].split(", ")
     assert "infinite_loss_rows" in left_out and "cross_entropy" not in left_out
