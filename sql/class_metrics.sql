@@ -1,17 +1,6 @@
 -- name: class_metrics
 -- summary: One row per period x version x segment x class: support, predicted and correct rows, recall, precision, F1, mean predicted probability against label frequency, the class's cross-entropy, class-wise calibration error and top-k recall; then a macro and a weighted average row per cell.
--- param logs (source): prediction log: a Parquet file, glob or (hive-partitioned) folder, or a table/view name; required unless partials is set
--- param time_col (column, default ts): prediction time, DATE or TIMESTAMP; its day is CAST(time AS DATE)
--- param scores_col (column, default logits): the model's scores: a numeric list per row (one number for binary_* kinds)
--- param scores_kind (choice(logits|probs|binary_logit|binary_prob), default logits): logits (softmax taken) or probabilities (checked, renormalised); binary_logit s -> [0, s], binary_prob p -> [1-p, p]
--- param label_col (column, default label): true class: 0-based index, or a name listed in classes; NULL = not yet labelled; empty = no labels
--- param version_col (column, default model_version): model version column
--- param segment_cols (columns): comma-separated segment columns to group by (none by default)
--- param grain (choice(day|week|month), default week): period length; weeks start on Monday
--- param labels (source): separate label table (path or table) joined on id_col; its label_col holds the labels
--- param id_col (column): prediction id present in both logs and labels (needed with labels)
--- param classes (text): class names in class-index order, comma-separated, for labels stored as text; an unknown name is a bad label
--- param bins (integer(1..1000), default 15): equal-width confidence bins, bin m holds m/B < c <= (m+1)/B (0 in bin 0)
+-- include: column_roles
 -- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column roles must cover version_col and segment_cols
 -- output period: first day of the period
 -- output class: 0-based class index; NULL on the two average rows
