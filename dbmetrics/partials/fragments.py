@@ -99,11 +99,9 @@ def store_fragments(texts: dict, given: dict | None = None) -> tuple:
                 + f"\nFROM ({fragments['state']})\nLIMIT 0"
             )
             continue
-        if lacking:
-            raise DbmetricsError(
-                f"partials: the store {s.root} has no `{kind.name}` state for {len(lacking)} "
-                "day(s) (written by an older dbmetrics); `dbmetrics partials update` adds it"
-            )
+        if lacking:  # refused by render only when the query reads this kind
+            fragments[kind.name] = None
+            continue
         fragments[kind.name] = summed(kind, keys, f"partials_{kind.name}")
         bound[f"partials_{kind.name}"] = s.files(kind.name, manifest)
     return fragments, bound
