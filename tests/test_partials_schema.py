@@ -40,7 +40,7 @@ def test_day_files_have_the_declared_schema(con, demo, tmp_path):
     assert state.field("bin").type == pa.int32() and state.field("rows").type == pa.int64()
     assert state.field("sum_loss").type == pa.float64()
     classes = pq.read_schema(files["class_state"])
-    assert classes.names[3:] == ["class", "sum_prob", "predicted_rows", "label_rows"]
+    assert classes.names[3:] == ["class", *kinds.KINDS_BY_NAME["class_state"].columns]
     assert classes.field("class").type == pa.int64()
 
 
@@ -56,14 +56,20 @@ def test_a_store_with_a_file_of_another_schema_is_refused(con, demo, tmp_path):
 
 
 def test_a_table_is_cast_to_the_declared_order_and_types():
+    columns = kinds.KINDS_BY_NAME["class_state"].columns
+
+    def declared(c):
+        return pa.float64() if c.startswith("sum_") else pa.int64()
+
+    def loose(c):  # the right values in a narrower type, columns in another order
+        return pa.array([0.5], pa.float32()) if c.startswith("sum_") else pa.array([1], pa.int32())
+
     table = pa.table(
         {
-            "label_rows": pa.array([1], pa.int32()),
+            **{c: loose(c) for c in reversed(columns)},
             "model_version": pa.array(["v1"], pa.large_string()),
             "class": pa.array([0], pa.int32()),
             "day": pa.array([0], pa.date32()),
-            "sum_prob": pa.array([0.5], pa.float32()),
-            "predicted_rows": pa.array([1], pa.int64()),
         }
     )
     conformed = kinds.conform("class_state", table)
@@ -72,9 +78,7 @@ def test_a_table_is_cast_to_the_declared_order_and_types():
             ("day", pa.date32()),
             ("model_version", pa.string()),
             ("class", pa.int64()),
-            ("sum_prob", pa.float64()),
-            ("predicted_rows", pa.int64()),
-            ("label_rows", pa.int64()),
+            *((c, declared(c)) for c in columns),
         ]
     )
     with pytest.raises(DbmetricsError, match="lacks column"):

@@ -272,7 +272,7 @@ def test_the_states_as_spark_dataframes_are_the_store_rows(spark, log_folder, tm
     params = params_for(log_folder, "probs, inline labels")
     duckdb_update(params, tmp_path / "store")
     frames = state_frames(spark, {**params, "timezone": TIMEZONE})
-    assert sorted(frames) == ["class_state", "state"]
+    assert sorted(frames) == sorted(k.name for k in kinds.STATE_KINDS)
     for kind, df in frames.items():
         files = day_files(tmp_path / "store", kind).values()
         expected = pa.concat_tables(pq.read_table(f) for f in files)
@@ -348,7 +348,7 @@ def test_a_spark_job_killed_before_its_commit_leaves_the_store_and_is_cleaned_up
         spark_update(spark, params, store, full=True, write_from="workers")
     monkeypatch.undo()
     staged = list(store.glob(".staging/*/*.tmp"))
-    assert len(staged) == 2 * len(day_files(store, "state"))  # both kinds of every day
+    assert len(staged) == len(kinds.STATE_KINDS) * len(day_files(store, "state"))  # every kind
     assert (store / "manifest.json").read_text() == manifest
     same_table(before, run_query(con, "rollup", {"partials": str(store)}))
     assert duckdb_update(params, store)["days_written"] == 0
