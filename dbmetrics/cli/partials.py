@@ -25,38 +25,53 @@ def command():
     """
 
 
+_UPDATE_OPTIONS = (
+    click.option(
+        "--store", required=True, metavar="DIR", help="The store folder (created if absent)."
+    ),
+    click.option(
+        "--set",
+        "-s",
+        "settings",
+        multiple=True,
+        metavar="PARAM=VALUE",
+        help="A column-role parameter (logs, time_col, scores_col, ...); repeat for more. "
+        "An existing store reuses the ones it was built with.",
+    ),
+    click.option(
+        "--relabel-days",
+        type=click.IntRange(min=0, max=100_000),
+        default=None,
+        help="Bound the work: a day whose labels changed more than this many days before the "
+        "newest new or changed day keeps its stored state and is reported as stale "
+        "(default: recompute every changed day).",
+    ),
+    click.option(
+        "--since",
+        type=click.DateTime(formats=["%Y-%m-%d"]),
+        metavar="YYYY-MM-DD",
+        help="Also recompute every day from this one on, changed or not.",
+    ),
+    click.option("--full", is_flag=True, help="Recompute every day in the log."),
+    click.option(
+        "--drop-vanished",
+        is_flag=True,
+        help="Follow the logs where stored days lost rows (retention): drop or recompute them "
+        "(default: keep their stored state, with a warning).",
+    ),
+)
+
+
+def update_options(function):
+    """The options of a store update, shared by `partials update` and the Spark entry point
+    (same names, ranges and messages)."""
+    for option in reversed(_UPDATE_OPTIONS):
+        function = option(function)
+    return function
+
+
 @command.command("update")
-@click.option("--store", required=True, metavar="DIR", help="The store folder (created if absent).")
-@click.option(
-    "--set",
-    "-s",
-    "settings",
-    multiple=True,
-    metavar="PARAM=VALUE",
-    help="A column-role parameter (logs, time_col, scores_col, ...); repeat for more. "
-    "An existing store reuses the ones it was built with.",
-)
-@click.option(
-    "--relabel-days",
-    type=click.IntRange(min=0, max=100_000),
-    default=None,
-    help="Bound the work: a day whose labels changed more than this many days before the "
-    "newest new or changed day keeps its stored state and is reported as stale "
-    "(default: recompute every changed day).",
-)
-@click.option(
-    "--since",
-    type=click.DateTime(formats=["%Y-%m-%d"]),
-    metavar="YYYY-MM-DD",
-    help="Also recompute every day from this one on, changed or not.",
-)
-@click.option("--full", is_flag=True, help="Recompute every day in the log.")
-@click.option(
-    "--drop-vanished",
-    is_flag=True,
-    help="Follow the logs where stored days lost rows (retention): drop or recompute them "
-    "(default: keep their stored state, with a warning).",
-)
+@update_options
 @click.pass_context
 def update_command(ctx, store, settings, relabel_days, since, full, drop_vanished):
     """Add new days to the store and recompute the days whose rows or labels changed, in

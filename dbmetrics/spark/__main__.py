@@ -13,6 +13,7 @@ import sys
 import click
 
 from dbmetrics.cli.params import parse_settings
+from dbmetrics.cli.partials import update_options
 from dbmetrics.errors import DbmetricsError
 
 
@@ -22,36 +23,7 @@ def cli():
 
 
 @cli.command("update")
-@click.option("--store", required=True, metavar="DIR", help="The store folder (created if absent).")
-@click.option(
-    "--set",
-    "-s",
-    "settings",
-    multiple=True,
-    metavar="PARAM=VALUE",
-    help="A column-role parameter (logs, time_col, scores_col, ..., timezone); repeat for more.",
-)
-@click.option(
-    "--relabel-days",
-    type=click.IntRange(min=0, max=100_000),
-    default=None,
-    help="Bound the work: a day whose labels changed more than this many days before the "
-    "newest new or changed day keeps its stored state and is reported as stale "
-    "(default: recompute every changed day).",
-)
-@click.option(
-    "--since",
-    type=click.DateTime(formats=["%Y-%m-%d"]),
-    metavar="YYYY-MM-DD",
-    help="Also recompute every day from this one on, changed or not.",
-)
-@click.option("--full", is_flag=True, help="Recompute every day in the log.")
-@click.option(
-    "--drop-vanished",
-    is_flag=True,
-    help="Follow the logs where stored days lost rows (retention): drop or recompute them "
-    "(default: keep their stored state, with a warning).",
-)
+@update_options
 @click.option(
     "--write-from",
     type=click.Choice(["auto", "driver", "workers"]),
