@@ -18,13 +18,26 @@ from dbmetrics.cli.results import emit, key_columns, output_options
     metavar="PARAM=VALUE",
     help="A query parameter; repeat for more. Wins over the project file.",
 )
+@click.option(
+    "--since", metavar="DATE", help="Keep the periods whose first day is on or after DATE."
+)
+@click.option(
+    "--until", metavar="DATE", help="Keep the periods whose first day is on or before DATE."
+)
+@click.option(
+    "--last",
+    metavar="N",
+    help="Keep the N periods ending with the one holding --until (default: the latest).",
+)
 @output_options
 @click.pass_context
-def command(ctx, name, settings, fmt, output, flag_column, pick, all_columns):
+def command(ctx, name, settings, since, until, last, fmt, output, flag_column, pick, all_columns):
     """Run the saved query NAME and print or write its result.
 
     Parameters come from --set, then the project file ([queries.NAME], then
     [params]), then the query's defaults; `dbmetrics queries NAME` lists them.
+    --since, --until and --last (dates YYYY-MM-DD, a count) keep some periods of the
+    result, also for --fail-on-flag; drift's reference window is not cut.
 
     \b
     Example:
@@ -34,6 +47,7 @@ def command(ctx, name, settings, fmt, output, flag_column, pick, all_columns):
     from dbmetrics import queries
 
     session = ctx.obj
+    chosen = queries.periods(since, until, last)
     cli_params = parse_settings(settings)
     dirs = session.query_dirs
     info = queries.get_query(name, query_dirs=dirs)
@@ -41,6 +55,8 @@ def command(ctx, name, settings, fmt, output, flag_column, pick, all_columns):
     if session.verbose:
         sql, bound = queries.render_query(session.connect(), name, params, query_dirs=dirs)
         session.info(f"-- {info.path}\n{sql}\n-- bound: {bound}")
-    table = session.execute(lambda con: queries.run_query(con, name, params, query_dirs=dirs))
+    table = session.execute(
+        lambda con: queries.run_query(con, name, params, query_dirs=dirs, periods=chosen)
+    )
     key = key_columns(info, params)
     ctx.exit(emit(session, table, fmt, output, flag_column, pick, all_columns, key))

@@ -9,6 +9,7 @@ from dbmetrics.project import merge, open_project
 from . import notes, score_kind
 from .catalog import get_query
 from .engine import VIEWS
+from .periods import Periods, keep
 from .render import rendered
 from .roles import ColumnRoles
 from .schema import first_line, is_parquet, open_source, shadowing, unreadable
@@ -16,7 +17,12 @@ from .values import split_names
 
 
 def run_query(
-    con: duckdb.DuckDBPyConnection, name: str, params: dict, query_dirs=None, project=None
+    con: duckdb.DuckDBPyConnection,
+    name: str,
+    params: dict,
+    query_dirs=None,
+    project=None,
+    periods: Periods | None = None,
 ) -> pa.Table:
     """Render `name` with `params`, execute, fetch as Arrow.
 
@@ -24,6 +30,8 @@ def run_query(
     project: a project file (path) or a dbmetrics.project.Project, as the CLI's --project:
     its query_dirs are searched too and its [params] / [queries.NAME] fill in what `params`
     does not give (dbmetrics.project.merge).
+    periods: keep only these periods of the result (`periods.periods(since, until, last)`;
+    see periods.py); a result without a `period` column is then an error.
 
     STATE is computed first by the numpy engine and read from a registered table, which
     is dropped again afterwards. Scores that do not look like `scores_kind` says give a
@@ -51,6 +59,8 @@ def run_query(
             "(an input column shares a computed column's name); rename it "
             "in a view"
         )
+    if periods is not None:
+        table = keep(table, periods, r.texts.get("grain"), name)
     for message in notes.result_notes(name, r.texts, table):
         warn(message)
     return table
