@@ -19,6 +19,7 @@ from .arrow_lists import (
     score_matrix,
     single_array,
 )
+from .binary_scores import pair
 from .kernels.distributions import as_distribution
 from .kernels.losses import temperature_scaled_losses
 from .kernels.predictions import calibration_bin, predicted_class
@@ -123,9 +124,9 @@ def widen(mat: np.ndarray, k: int, pad: float) -> np.ndarray:
 
 
 def binary_logit_matrix(scores):
-    """[0, s]: the two-class logits of one log-odds score s."""
+    """[0, s]: the two-class logits of one log-odds score s (binary_scores.pair)."""
     s, present = float_column(scores)
-    return np.column_stack([np.zeros_like(s), s]), present
+    return pair("binary_logit", s), present
 
 
 def binary_logit_loss(mat: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -139,11 +140,11 @@ def binary_logit_loss(mat: np.ndarray, y: np.ndarray) -> np.ndarray:
 
 
 def binary_prob_matrix(scores):
-    """[1 - p, p]; a p outside [0, 1] (or NaN) gives a NaN row."""
+    """[1 - p, p] (binary_scores.pair); a p outside [0, 1] (or NaN) gives a NaN row."""
     p, present = float_column(scores)
     with np.errstate(invalid="ignore"):
         p = np.where((p >= 0.0) & (p <= 1.0), p, np.nan)
-    return np.column_stack([1.0 - p, p]), present
+    return pair("binary_prob", p), present
 
 
 def binary_and_label_to_doubles(name, to_matrix, kernel):

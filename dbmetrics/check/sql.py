@@ -5,9 +5,10 @@ Row reasons are exclusive and tested in the order listed; a row's label is judge
 its scores are bad (its range only when its K is known).
 """
 
+from dbmetrics.binary_scores import is_binary, pair_sql
 from dbmetrics.queries.roles import class_index
 from dbmetrics.queries.schema import quote
-from dbmetrics.queries.score_kind import is_binary, shape_sql
+from dbmetrics.queries.score_kind import shape_sql
 from dbmetrics.queries.state_sql import nested, predictions
 
 from .params import Resolved
@@ -137,8 +138,8 @@ FROM lab"""
 def targets(r: Resolved) -> str:
     """Soft targets by reason (NULL reason: a distribution, or no target)."""
     scores = quote(r.roles.scores)
-    if r.roles.kind.startswith("binary_"):
-        scores = f"[0.0, {scores}]"  # only its length (2) is used
+    if is_binary(r.roles.kind):
+        scores = pair_sql(r.roles.kind, scores)  # only its length (2) is used
     rows_sql = (
         f"SELECT CAST({quote(r.target_col)} AS DOUBLE[]) AS t, "
         f"CAST({scores} AS DOUBLE[]) AS s\nFROM {r.logs.sql}"

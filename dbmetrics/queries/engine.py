@@ -14,6 +14,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from dbmetrics.arrow_lists import integer_column, score_matrix
+from dbmetrics.binary_scores import is_binary
 from dbmetrics.kernels import row_stats
 from dbmetrics.kernels.distributions import as_distribution
 from dbmetrics.kernels.softmax import softmax
@@ -293,7 +294,7 @@ def state_route(con, roles: ColumnRoles, bound: dict, classes: bool) -> str:
     what `dbmetrics render` writes for clients without Python, but measured slower than both
     routes above at K = 10 and K = 1000, so it is not chosen here.
     """
-    if classes or roles.kind.startswith("binary_"):
+    if classes or is_binary(roles.kind):
         return "engine"
     sql = (
         f"SELECT max(len(s)) FROM (SELECT logs.{quote(roles.scores)} AS s "
@@ -310,7 +311,7 @@ def engine_pays(con, roles: ColumnRoles, bound: dict, classes: bool) -> bool:
 
 def sampled_classes(con, roles: ColumnRoles, bound: dict) -> tuple:
     """(smallest, largest) K of the first 2048 rows' scores; (None, None) when all are NULL."""
-    if roles.kind.startswith("binary_"):
+    if is_binary(roles.kind):
         return 2, 2
     sql = (
         f"SELECT min(len(s)), max(len(s)) FROM (SELECT logs.{quote(roles.scores)} AS s "

@@ -17,17 +17,19 @@ from dataclasses import dataclass
 
 import duckdb
 
+from dbmetrics.binary_scores import is_binary
 from dbmetrics.errors import DbmetricsError
 
 from .role_params import DEFAULTS
 from .schema import Source, quote
 from .values import split_names
 
-KINDS = {  # scores_kind -> (row-stats function, distribution function, scalar wrapper)
-    "logits": ("logit_row_stats", "softmax", None),
-    "probs": ("prob_row_stats", "as_distribution", None),
-    "binary_logit": ("logit_row_stats", "softmax", "[0.0, {s}]"),
-    "binary_prob": ("prob_row_stats", "as_distribution", "[1.0 - {s}, {s}]"),
+KINDS = {  # scores_kind -> (row-stats function, distribution function); binary_* scores are
+    # read as two-class lists (dbmetrics.binary_scores)
+    "logits": ("logit_row_stats", "softmax"),
+    "probs": ("prob_row_stats", "as_distribution"),
+    "binary_logit": ("logit_row_stats", "softmax"),
+    "binary_prob": ("prob_row_stats", "as_distribution"),
 }
 TIME_TYPES = ("DATE", "TIMESTAMP")
 INTEGER_TYPES = (
@@ -103,7 +105,7 @@ def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
     segments = tuple(logs.column(c, "segment_cols") for c in split_names(texts["segment_cols"]))
     kind = texts["scores_kind"]
     check_type(logs, time, "time_col", TIME_TYPES, "a DATE or TIMESTAMP column")
-    if kind.startswith("binary_"):
+    if is_binary(kind):
         check_type(
             logs,
             scores,

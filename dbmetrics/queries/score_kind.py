@@ -24,16 +24,13 @@ names in `classes`); `dbmetrics check` classes every row with the same SQL.
 
 from dataclasses import dataclass
 
+from dbmetrics.binary_scores import is_binary
 from dbmetrics.kernels.distributions import SUM_TOLERANCE
 
 from .schema import quote
 
 SAMPLE_ROWS = 10_000
 SHAPES = ("distribution", "percentages", "unit", "other")
-
-
-def is_binary(kind: str) -> bool:
-    return kind.startswith("binary_")
 
 
 def shape_sql(expr: str, kind: str) -> str:

@@ -25,6 +25,7 @@ rows. Every sum is a Kahan sum (fsum) and 0 when empty, so states add across day
 
 import textwrap
 
+from dbmetrics.binary_scores import is_binary, pair_sql
 from dbmetrics.kernels.row_stats import (
     INVALID,
     LABEL_OUT_OF_RANGE,
@@ -98,10 +99,9 @@ def predictions(roles: ColumnRoles, window: bool = False) -> str:
     window: keep only $window_start <= time < $window_end (bound TIMESTAMPs), a filter
     DuckDB pushes into the Parquet scan, so row groups outside it are skipped.
     """
-    wrap = KINDS[roles.kind][2]
     scores = f"logs.{quote(roles.scores)}"
-    if wrap:
-        scores = f"CASE WHEN {scores} IS NULL THEN NULL ELSE {wrap.format(s=scores)} END"
+    if is_binary(roles.kind):
+        scores = f"CASE WHEN {scores} IS NULL THEN NULL ELSE {pair_sql(roles.kind, scores)} END"
     keys = ", ".join(f"logs.{quote(c)}" for c in (roles.version, *roles.segments))
     join = ""
     if roles.labels is not None:

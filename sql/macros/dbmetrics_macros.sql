@@ -78,7 +78,8 @@ CREATE OR REPLACE MACRO dbmetrics_softplus(t) AS
             ELSE dbmetrics_log1p(exp(sp_t))
         END)[1];
 
--- The two-class scores of one binary score (the only place these wrappers are written):
+-- The two-class scores of one binary score (the pack's only spelling of these wrappers; the
+-- package's is dbmetrics/binary_scores.py, and tests/test_binary_scores.py holds them equal):
 -- a log-odds s of class 1 is the logits [0, s]; a probability p of class 1 is [1 - p, p].
 CREATE OR REPLACE MACRO dbmetrics_binary_logit_scores(s) AS [0.0, s::DOUBLE];
 CREATE OR REPLACE MACRO dbmetrics_binary_prob_scores(p) AS [1.0 - p::DOUBLE, p::DOUBLE];
