@@ -21,7 +21,7 @@ from duckdb.sqltypes import BIGINT, BOOLEAN, DOUBLE, INTEGER, VARCHAR
 
 from . import macros
 from .kernels import distributions as dist
-from .kernels import losses, predictions, row_stats, softmax
+from .kernels import losses, predictions, row_stats, significance, softmax
 from .udf_adapters import (
     LOGITS_PAD,
     PROBS_PAD,
@@ -32,6 +32,7 @@ from .udf_adapters import (
     binary_prob_matrix,
     confidence_to_bin,
     correct_class,
+    doubles_to_doubles,
     lists_and_label_to_doubles,
     lists_to_class,
     lists_to_doubles,
@@ -60,6 +61,7 @@ TAGS = {
     "confidence": "takes a confidence in [0, 1] (else NULL)",
     "grid": "returns one value per temperature",
     "row_stats": "returns the row-statistics struct the saved queries sum up",
+    "statistic": "takes a test statistic (NaN: NULL)",
 }
 IMPLEMENTATIONS = ("fastest", "macros", "udf")
 
@@ -502,6 +504,17 @@ FUNCTIONS = (
             "probs",
             "row_stats",
         ),
+    ),
+    SqlFunction(
+        "normal_sf",
+        ("z",),
+        (DOUBLE,),
+        DOUBLE,
+        doubles_to_doubles(significance.normal_sf),
+        "`P(Z > z)` for a standard normal `Z`, `erfc(z / sqrt 2) / 2`; two-sided p of a z: "
+        "`2 * normal_sf(abs(z))`",
+        "normal_sf(1.96)",
+        ("statistic",),
     ),
 )
 

@@ -177,6 +177,16 @@ def confidence_to_bin(conf, bins):
     return integers(out, ~(present & b_present) | (out < 0))
 
 
+def doubles_to_doubles(kernel):
+    """A kernel of one float64 array as a UDF of one DOUBLE column; NULL and NaN give NULL."""
+
+    def udf(values):
+        x, present = float_column(values)
+        return doubles(kernel(x), ~present)
+
+    return udf
+
+
 def temperature_grid_udf(scores, labels, temperatures, kinds):
     """Cross-entropy at each temperature, for the rows a rollup evaluates; NULL otherwise.
 

@@ -13,7 +13,8 @@ there (2 ulp observed), so relative agreement is only meaningful above ~1e-6.
 (Accuracy at that end is pinned in test_core_losses.py against scipy.special.log_expit.)
 
 References: scipy.special log_softmax / softmax / logsumexp / rel_entr / entr / xlogy,
-numpy argmax / searchsorted (sklearn calibration_curve binning), Brier (1950) sum.
+numpy argmax / searchsorted (sklearn calibration_curve binning), Brier (1950) sum;
+scipy.stats.norm.sf for normal_sf.
 """
 
 from functools import cache
@@ -22,7 +23,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 import pytest
-from scipy import special
+from scipy import special, stats
 
 KS = (2, 3, 10, 1000, "mixed")
 EPS = np.finfo(float).eps
@@ -497,3 +498,28 @@ def test_binary_functions_agree_with_references(module_con, name):
     col = module_con.sql(f"SELECT {name}({arg}, y) AS v FROM b ORDER BY i").to_arrow_table()
     col = col.column("v").combine_chunks()
     assert_agree(as_floats(col), binary_reference(name, s, p, y), name)
+
+
+# ---------------------------------------------------------------- tail probabilities
+
+
+def test_normal_sf_agrees_with_scipy(module_con):
+    """normal_sf against scipy.stats.norm.sf on z statistics over the whole range (both
+    tails, both branches of the macro's erfc, +/-inf), NULL for NULL and NaN."""
+    rng = np.random.default_rng(11)
+    z = np.concatenate(
+        [
+            rng.normal(0, 3, 3000),
+            np.linspace(-38, 38, 1521),
+            [0.0, 5e-324, -5e-324, 2.1213203435596424, np.inf, -np.inf, np.nan],
+        ]
+    )
+    values = pa.array(z, pa.float64(), mask=np.arange(len(z)) % 97 == 5)
+    module_con.register("stats", pa.table({"i": np.arange(len(z)), "z": values}))
+    col = module_con.sql("SELECT normal_sf(z) AS v FROM stats ORDER BY i").to_arrow_table()
+    ref = np.where(values.is_null().to_numpy(zero_copy_only=False), np.nan, stats.norm.sf(z))
+    got = as_floats(col.column("v").combine_chunks())
+    assert_agree(got, ref, "normal_sf")
+    tail = ref > 1e-300  # beyond, both round to subnormals or 0
+    np.testing.assert_allclose(got[tail], ref[tail], rtol=1e-12)
+    assert np.isnan(got[-1]) and got[-3] == 0.0 and got[-2] == 1.0

@@ -64,6 +64,7 @@ def test_the_tags_give_the_lists_the_input_rules_were_written_for():
         "binary_cross_entropy_prob",
         "binary_brier_score",
         "calibration_bin",
+        "normal_sf",
         "logit_row_stats",
         "prob_row_stats",
     }

@@ -402,6 +402,30 @@ CREATE OR REPLACE MACRO prob_row_stats(probs, label, bins) AS
         }
     )[1])[1])[1])[1])[1])[1])[1])[1];
 
+-- ------------------------------------------------------------------ tail probabilities
+
+-- erfc(x) for x >= 0 (x = 0 gives 1): below 1.5, 1 - erf(x) from the series of positive
+-- terms erf(x) = sum_n exp(-x^2) x^(2n+1) / Gamma(n + 3/2) (no cancellation; 60 terms);
+-- from 1.5, Laplace's continued fraction erfc(x) = exp(-x^2) / sqrt(pi) / (x + (1/2) / (x +
+-- (2/2) / (x + (3/2) / ...))) evaluated from its 100th level. Within 1e-12 of scipy.
+CREATE OR REPLACE MACRO dbmetrics_erfc(x) AS
+    CASE
+        WHEN x = 0.0 THEN 1.0
+        WHEN x < 1.5 THEN 1.0 - list_sum(list_transform(range(60), lambda ef_n:
+            exp(-x * x + (2 * ef_n + 1) * ln(x) - lgamma(ef_n + 1.5))))
+        ELSE exp(-x * x) / sqrt(pi())
+             / list_reduce(range(100, 0, -1), lambda ef_t, ef_k: x + ef_k / 2.0 / ef_t, x)
+    END;
+
+-- P(Z > z) for a standard normal Z, erfc(z / sqrt 2) / 2; NaN gives NULL.
+CREATE OR REPLACE MACRO normal_sf(z) AS
+    list_transform([z::DOUBLE], lambda ns_z:
+        CASE
+            WHEN isnan(ns_z) THEN NULL
+            WHEN ns_z >= 0.0 THEN dbmetrics_erfc(ns_z / sqrt(2.0)) / 2.0
+            ELSE 1.0 - dbmetrics_erfc(-ns_z / sqrt(2.0)) / 2.0
+        END)[1];
+
 -- ------------------------------------------------------------------ public names
 
 -- The functions other macros build on are defined above as dbmetrics_ helpers, so that
