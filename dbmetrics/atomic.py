@@ -1,13 +1,17 @@
 """Writing files whole: the one home of dbmetrics' atomic file writing.
 
 A file dbmetrics writes appears complete under its name or not at all: the content goes to a
-fresh temp file beside it (``tempfile.mkstemp``: a new name opened with ``O_EXCL``, never
-through a symbolic link), is flushed to disk, gets its permission bits, and is renamed over
-the name in one ``os.replace``; the folder is then flushed so the rename survives a power
-loss. A failure or an interrupt removes the temp file and leaves the old file as it was.
+fresh temp file beside it (``.NAME.<random>.tmp``, created with ``O_EXCL | O_NOFOLLOW``: never
+an existing file, never through a symbolic link; permission bits ``0o666`` minus the umask),
+is flushed to disk, and is renamed over the name in one ``os.replace``; the folder is then
+flushed so the rename survives a power loss. A failure or an interrupt removes the temp file
+and leaves the old file as it was.
 
 ``atomic_path`` and ``atomic_write`` are for files dbmetrics owns (a partials store, the
 demo data): whatever is at the name, a symbolic link included, is replaced, never followed.
+A writer that moves several files into place at once (the partials store's publish) builds
+on the same three steps: ``new_file`` (written through its descriptor and flushed),
+``replace`` and ``fsync_dir``.
 ``write_output`` is for a path the user named (``--output``), where the file may be special:
 
 - a FIFO, a character or block device (``/dev/null``, a terminal, ``/dev/stdout``) is opened
@@ -23,19 +27,71 @@ from __future__ import annotations
 
 import errno
 import os
+import secrets
 import stat
-import tempfile
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import BinaryIO
 
 TEMP_SUFFIX = ".tmp"
+_CREATE = os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_NOFOLLOW | getattr(os, "O_CLOEXEC", 0)
+# fsync of a folder where the platform or file system cannot do it
+_NO_FOLDER_SYNC = {errno.EINVAL, errno.EBADF, errno.ENOTSUP, errno.EOPNOTSUPP, errno.EROFS}
 
 
 def temp_prefix(path: Path) -> str:
     """Temp files for ``path`` are named ``.NAME.<random>.tmp`` beside it."""
     return f".{path.name}."
+
+
+def is_temp(name, target_name: str) -> bool:
+    """Whether the file name ``name`` is a temp file of a file named ``target_name``.
+
+    >>> is_temp(".manifest.json.3f2a.tmp", "manifest.json"), is_temp("a.tmp", "manifest.json")
+    (True, False)
+    """
+    name = os.path.basename(str(name)) if name is not None else ""
+    return name.startswith(f".{target_name}.") and name.endswith(TEMP_SUFFIX)
+
+
+def new_file(folder, prefix: str, write: Callable[[BinaryIO], None]) -> Path:
+    """Call ``write(f)`` on a new file ``PREFIX<random>.tmp`` in ``folder`` (created with
+    ``O_EXCL | O_NOFOLLOW``, written through that descriptor), flush it to disk and return its
+    path; on failure it is removed."""
+    fd, tmp = _create(Path(folder), prefix)
+    try:
+        with open(tmp, "wb", opener=lambda *_: fd) as f:  # the descriptor, named as tmp
+            write(f)
+            f.flush()
+            os.fsync(f.fileno())
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    return tmp
+
+
+def replace(src: Path, target) -> None:
+    """Rename the finished file ``src`` over ``target`` in one step: whatever is at
+    ``target``, a symbolic link included, is replaced, never followed. ``fsync_dir`` on the
+    folder makes it survive a power loss."""
+    os.replace(src, target)
+
+
+def fsync_dir(folder) -> None:
+    """Flush a folder's entries (renames into it) to disk; nothing where the folder cannot be
+    opened or the platform or file system cannot flush one."""
+    try:
+        fd = os.open(folder, os.O_RDONLY | getattr(os, "O_DIRECTORY", 0))
+    except OSError:  # e.g. a folder this user may write but not read; the rename is done
+        return
+    try:
+        os.fsync(fd)
+    except OSError as exc:
+        if exc.errno not in _NO_FOLDER_SYNC:
+            raise
+    finally:
+        os.close(fd)
 
 
 @contextmanager
@@ -47,28 +103,30 @@ def atomic_path(path, mode: int | None = None) -> Iterator[Path]:
     """
     target = Path(path)
     with _naming(target, None):
-        fd, name = tempfile.mkstemp(
-            prefix=temp_prefix(target), suffix=TEMP_SUFFIX, dir=target.parent
-        )
+        fd, tmp = _create(target.parent, temp_prefix(target))
     os.close(fd)
-    tmp = Path(name)
     try:
         with _naming(target, tmp):
             yield tmp
             with open(tmp, "rb+") as f:
                 os.fsync(f.fileno())
-            os.chmod(tmp, _default_mode() if mode is None else mode)
-            os.replace(tmp, target)
+            _publish(tmp, target, mode)
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
-    _fsync_dir(target.parent)
 
 
 def atomic_write(path, write: Callable[[BinaryIO], None], mode: int | None = None) -> None:
     """Call ``write(f)`` on a binary file that becomes ``path`` only once it is complete."""
-    with atomic_path(path, mode) as tmp, open(tmp, "wb") as f:
-        write(f)
+    target = Path(path)
+    with _naming(target, None):
+        tmp = new_file(target.parent, temp_prefix(target), write)
+    try:
+        with _naming(target, tmp):
+            _publish(tmp, target, mode)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
 
 
 def write_output(path, write: Callable[[BinaryIO], None]) -> None:
@@ -110,6 +168,24 @@ def _write_through(path: Path, write: Callable[[BinaryIO], None]) -> None:
         write(f)
 
 
+def _create(folder: Path, prefix: str) -> tuple:
+    """(descriptor, path) of a new empty file ``PREFIX<random>.tmp`` in ``folder``."""
+    while True:  # a name already taken (2^-64 per try) is passed over, as mkstemp does
+        tmp = folder / f"{prefix}{secrets.token_hex(8)}{TEMP_SUFFIX}"
+        try:
+            return os.open(tmp, _CREATE, 0o666), tmp
+        except FileExistsError:
+            continue
+
+
+def _publish(tmp: Path, target: Path, mode: int | None) -> None:
+    """The last steps of a one-file write: permission bits, rename, folder flush."""
+    if mode is not None:
+        os.chmod(tmp, mode)
+    replace(tmp, target)
+    fsync_dir(target.parent)
+
+
 def _same_owner(tmp: Path, st: os.stat_result) -> None:
     """Give the temp file the old file's owner and group, as far as this user may."""
     if (st.st_uid, st.st_gid) == (os.getuid(), os.getgid()):
@@ -128,32 +204,8 @@ def _naming(path: Path, tmp: Path | None):
     try:
         yield
     except OSError as e:
-        if e.strerror and (_is_temp(e.filename, path) or _is_temp(e.filename2, path)):
+        if e.strerror and (is_temp(e.filename, path.name) or is_temp(e.filename2, path.name)):
             raise OSError(e.errno, e.strerror, str(path)) from None
         if tmp is not None and str(tmp) in str(e):  # e.g. pyarrow's "Failed to open ... '<tmp>'"
             raise OSError(e.errno, str(e).replace(str(tmp), str(path))) from None
         raise
-
-
-def _is_temp(filename, path: Path) -> bool:
-    name = os.path.basename(str(filename)) if filename is not None else ""
-    return name.startswith(temp_prefix(path)) and name.endswith(TEMP_SUFFIX)
-
-
-def _default_mode() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return 0o666 & ~mask
-
-
-def _fsync_dir(folder: Path) -> None:
-    try:
-        fd = os.open(folder, os.O_RDONLY)
-    except OSError:  # not possible on every platform; the rename is done
-        return
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)

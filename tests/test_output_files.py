@@ -129,12 +129,31 @@ def test_a_file_dbmetrics_owns_replaces_a_planted_link_instead_of_following_it(t
 
 
 def test_files_are_renamed_into_place_in_one_module_only():
-    """Besides dbmetrics/atomic.py, only the partials store's publish step (staged files moved
-    into place under the store lock) renames files."""
+    """dbmetrics/atomic.py is the only module that renames files: the partials store's publish
+    step (staged files moved into place under the store lock) goes through it too."""
     package = Path(dbmetrics.__file__).parent
     renaming = sorted(
         path.relative_to(package).as_posix()
         for path in package.rglob("*.py")
         if "os.replace(" in path.read_text() or ".rename(" in path.read_text()
     )
-    assert renaming == ["atomic.py", "partials/store.py"]
+    assert renaming == ["atomic.py"]
+
+
+def test_a_new_file_is_complete_or_gone_and_gets_the_umask_bits(tmp_path):
+    """atomic.new_file (the partials store's day files): a fresh name with the prefix, the
+    content in full, permission bits 0o666 minus the umask; a failed write leaves nothing."""
+    path = atomic.new_file(tmp_path, "state.", lambda f: f.write(b"day"))
+    assert path.parent == tmp_path and path.name.startswith("state.") and path.suffix == ".tmp"
+    assert path.read_bytes() == b"day"
+    umask = os.umask(0)
+    os.umask(umask)
+    assert stat.S_IMODE(path.stat().st_mode) == 0o666 & ~umask
+
+    def fails(f):
+        f.write(b"half")
+        raise OSError(errno.EIO, "Input/output error")
+
+    with pytest.raises(OSError, match="Input/output error"):
+        atomic.new_file(tmp_path, "state.", fails)
+    assert os.listdir(tmp_path) == [path.name]

@@ -26,8 +26,10 @@ recorded as `retired` and deleted by the next publish (a reader still on the pre
 manifest can finish).
 
 Safety: a store folder is used only if it is new, empty, or holds a manifest. Files are
-created with O_EXCL | O_NOFOLLOW under random names, written through their descriptor, then
-renamed; a symlink where the store expects one of its folders is refused. Only files a
+written as dbmetrics writes every file (dbmetrics/atomic.py): created with O_EXCL |
+O_NOFOLLOW under random names, written through their descriptor, flushed to disk, then
+renamed, their folders flushed; a symlink where the store expects one of its folders is
+refused. Only files a
 manifest or .pending.json names, and dbmetrics' own temporary names, are ever deleted:
 foreign files in the folder are left alone. Leftovers of dead writers (their staging folder
 is no longer locked) are removed under the store lock.
@@ -47,6 +49,7 @@ from pathlib import Path
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from dbmetrics.atomic import atomic_write, fsync_dir, is_temp, new_file, replace
 from dbmetrics.errors import DbmetricsError
 
 from .kinds import KIND_NAMES, conform
@@ -55,37 +58,14 @@ from .manifest import DAY_FILE, FORMAT, day_file, is_day_key, validated
 LOCK = ".lock"
 STAGING = ".staging"
 PENDING = ".pending.json"
-TEMP = re.compile(r"\.manifest\.json\.[0-9A-Za-z]+\.tmp|\.pending\.json\.[0-9A-Za-z]+\.tmp")
+MANIFEST = "manifest.json"
 OLD_TEMP = re.compile(r"\..+\.[0-9]+\.tmp")  # format 1 wrote `.NAME.PID.tmp`
 OWN_ENTRIES = {LOCK, STAGING, PENDING}
 
 
-def create_exclusive(path: Path):
-    """A new file opened for writing; fails if anything (a symlink too) is at `path`."""
-    flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_NOFOLLOW | getattr(os, "O_CLOEXEC", 0)
-    return os.fdopen(os.open(path, flags, 0o666), "wb")
-
-
-def write_new(folder: Path, prefix: str, write) -> Path:
-    """write(file) into a new randomly named file in `folder`, flushed to disk; its path."""
-    path = folder / f"{prefix}.{secrets.token_hex(8)}.tmp"
-    try:
-        with create_exclusive(path) as f:
-            write(f)
-            f.flush()
-            os.fsync(f.fileno())
-    except BaseException:
-        path.unlink(missing_ok=True)
-        raise
-    return path
-
-
-def fsync_dir(folder: Path) -> None:
-    fd = os.open(folder, os.O_RDONLY | getattr(os, "O_DIRECTORY", 0))
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
+def is_own_temp(name: str) -> bool:
+    """A temp file of the manifest or of .pending.json (atomic.atomic_write's names)."""
+    return is_temp(name, MANIFEST) or is_temp(name, PENDING)
 
 
 def real_dir(path: Path, create: bool = False) -> Path:
@@ -139,7 +119,7 @@ class Store:
 
     @property
     def manifest_path(self) -> Path:
-        return self.root / "manifest.json"
+        return self.root / MANIFEST
 
     def manifest(self) -> dict | None:
         """The manifest (validated, in the version-2 shape), or None for a folder that holds
@@ -219,7 +199,7 @@ class Store:
         pending = self.pending()
         foreign = []
         for entry in self.root.iterdir():
-            if entry.name in OWN_ENTRIES or TEMP.fullmatch(entry.name):
+            if entry.name in OWN_ENTRIES or is_own_temp(entry.name):
                 continue
             if (
                 entry.name in KIND_NAMES
@@ -255,7 +235,7 @@ class Store:
             unlink_plain(self.root / rel)
         (self.root / PENDING).unlink(missing_ok=True)
         for entry in self.root.iterdir():
-            if TEMP.fullmatch(entry.name) or OLD_TEMP.fullmatch(entry.name):
+            if is_own_temp(entry.name) or OLD_TEMP.fullmatch(entry.name):
                 unlink_plain(entry)
         for kind in KIND_NAMES:
             folder = self.root / kind
@@ -331,7 +311,7 @@ class Publisher:
         """Copy an already written Parquet file in as the day `key`'s file of `kind`."""
         self._check(kind, key)
         with open(parquet_file, "rb") as src:
-            path = write_new(self.folder, kind, lambda f: shutil.copyfileobj(src, f))
+            path = new_file(self.folder, f"{kind}.", lambda f: shutil.copyfileobj(src, f))
         self._put(kind, key, path)
 
     def _check(self, kind: str, key: str) -> None:
@@ -385,7 +365,7 @@ class Publisher:
             for kind in {rel.split("/")[0] for rel in moves}:
                 real_dir(root / kind, create=True)
             for rel, staged in moves.items():
-                os.replace(staged, root / rel)
+                replace(staged, root / rel)
             for kind in {rel.split("/")[0] for rel in moves}:
                 fsync_dir(root / kind)
             manifest = {
@@ -399,7 +379,7 @@ class Publisher:
             }
             for rel in set(current["retired"]) - listed:  # before the swap: a kill after
                 unlink_plain(root / rel)  # it leaves them named (retired) for the next one
-            write_json(root, "manifest.json", manifest)
+            write_json(root, MANIFEST, manifest)
             (root / PENDING).unlink(missing_ok=True)
             return generation
 
@@ -420,19 +400,13 @@ class Publisher:
 def write_day_file(folder: Path, kind: str, table: pa.Table) -> Path:
     """Write a day's table of state kind `kind` in the declared schema, under a new name."""
     table = conform(kind, table)
-    return write_new(folder, kind, lambda f: pq.write_table(table, f, compression="zstd"))
+    return new_file(folder, f"{kind}.", lambda f: pq.write_table(table, f, compression="zstd"))
 
 
 def write_json(root: Path, name: str, data) -> None:
     """Replace root/name with `data` as JSON in one step (new file, fsync, rename)."""
     text = json.dumps(data, indent=2, sort_keys=True) + "\n"
-    tmp = write_new(root, f".{name}", lambda f: f.write(text.encode()))
-    try:
-        os.replace(tmp, root / name)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
-    fsync_dir(root)
+    atomic_write(root / name, lambda f: f.write(text.encode()))
 
 
 def describe(store) -> dict:
