@@ -1,5 +1,5 @@
 -- name: rollup
--- summary: One row per period x version x segment: volume, label coverage, cross-entropy (with standard error), perplexity, accuracy, Brier, ECE, entropy, and the rows that could not be scored, by reason.
+-- summary: One row per period x version x segment: volume, label coverage, cross-entropy, accuracy and Brier with 95% intervals, perplexity, ECE, entropy, and the rows that could not be scored, by reason.
 -- include: column_roles
 -- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column roles must cover version_col and segment_cols
 -- output period: first day of the period (date_trunc of grain; Monday for weeks)
@@ -9,10 +9,18 @@
 -- output evaluated_rows: n, rows with usable scores, a label in [0, K) and finite loss; the rows every labelled metric averages over
 -- output cross_entropy: mean -log p(label) in nats over evaluated rows
 -- output cross_entropy_se: standard error of that mean, sqrt(s^2 / n) with the sample variance s^2 (n - 1) from the sum and sum of squares; NULL for n < 2
+-- output cross_entropy_low: cross_entropy - z cross_entropy_se, z = 1.959964 (the 97.5% normal quantile): the 95% normal interval of the mean
+-- output cross_entropy_high: cross_entropy + z cross_entropy_se
 -- output perplexity: exp(cross_entropy)
 -- output accuracy: share of evaluated rows whose predicted class (first maximum) is the label
+-- output accuracy_low: lower end of the 95% Wilson (1927) score interval of accuracy = k / n: (p + z^2/2n - z sqrt(p(1 - p)/n + z^2/4n^2)) / (1 + z^2/n), z = 1.959964 (as scipy.stats.binomtest(k, n).proportion_ci(method='wilson'))
+-- output accuracy_high: upper end of that interval (+ z sqrt(...))
 -- output brier: mean Brier score as sklearn.metrics.brier_score_loss: for a two-class cell (binary_* logs, two-class lists) the positive class's (p1 - label)^2, range [0, 1]; otherwise brier_multiclass
+-- output brier_se: standard error of brier, sqrt(s^2 / n) with the sample variance s^2 (n - 1) of the per-row scores from their sum and sum of squares (half brier_multiclass_se in a two-class cell, as each row's score is half); NULL for n < 2 and for periods holding a day a store summarised before it kept the sum of squares
+-- output brier_low: brier - z brier_se, z = 1.959964: the 95% normal interval of the mean
+-- output brier_high: brier + z brier_se
 -- output brier_multiclass: mean multi-class Brier score sum_j (p_j - [j = label])^2 (Brier 1950), range [0, 2]; twice brier in a two-class cell
+-- output brier_multiclass_se: standard error of brier_multiclass, as brier_se
 -- output ece: sum over confidence bins of |correct - sum of confidence| / n = sum_b n_b/n |acc_b - conf_b| (top-label, evaluated rows, empty bins contribute 0)
 -- output mean_confidence: mean top-label probability over scored rows (label-free)
 -- output mean_entropy: mean Shannon entropy (nats) of the predicted distribution over scored rows (label-free)
@@ -28,7 +36,7 @@
 -- output average_precision_bound: the largest error the score binning can add to average_precision
 -- note: two-class columns come from the binary query (its notes give the binning and the bounds); they are NULL for logs with more than two classes, and a cell counts as two-class when all its evaluated rows have two classes.
 -- note: rows = missing_scores + invalid_scores + scored rows; scored rows = unlabelled + bad_labels + infinite_loss_rows + evaluated_rows.
--- show: period, version_col, segment_cols, rows, label_coverage, cross_entropy, cross_entropy_se, accuracy, ece, brier, mean_entropy, mean_confidence, evaluated_rows, missing_scores, invalid_scores, bad_labels, infinite_loss_rows
+-- show: period, version_col, segment_cols, rows, label_coverage, cross_entropy, cross_entropy_se, accuracy, accuracy_low, accuracy_high, ece, brier, brier_se, mean_entropy, mean_confidence, evaluated_rows, missing_scores, invalid_scores, bad_labels, infinite_loss_rows
 -- example: dbmetrics run rollup --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set segment_cols=region --set grain=month
 WITH
 state AS (
@@ -61,6 +69,35 @@ cells AS (
     LEFT JOIN two_class AS ref
         ON cur.period = ref.period AND cur.{{version_col}} IS NOT DISTINCT FROM ref.{{version_col}}
        AND {{segment_match}}
+),
+-- Point estimates and standard errors. A sum of squares read as NaN (a day written by an
+-- earlier store format) leaves its standard error NULL.
+measured AS (
+    SELECT *,
+        sum_loss / nullif(evaluated_rows, 0) AS cross_entropy,
+        CASE WHEN evaluated_rows > 1 THEN
+            sqrt(greatest(sum_loss_sq - sum_loss * sum_loss / evaluated_rows, 0)
+                 / (evaluated_rows - 1) / evaluated_rows) END AS cross_entropy_se,
+        correct_rows / nullif(evaluated_rows, 0) AS accuracy,
+        sum_brier / nullif(evaluated_rows, 0) AS brier_multiclass,
+        CASE WHEN evaluated_rows > 1 AND NOT isnan(sum_brier_sq) THEN
+            sqrt(greatest(sum_brier_sq - sum_brier * sum_brier / evaluated_rows, 0)
+                 / (evaluated_rows - 1) / evaluated_rows) END AS brier_multiclass_se,
+        two_class_rows = evaluated_rows AS two_class,
+        1.959963984540054 AS z  -- the 97.5% standard normal quantile: 95% intervals
+    FROM cells
+),
+-- A two-class row's (p1 - y)^2 is half its multi-class Brier, so is the standard error.
+intervals AS (
+    SELECT *,
+        CASE WHEN two_class THEN positive_brier ELSE brier_multiclass END AS brier,
+        CASE WHEN two_class THEN brier_multiclass_se / 2 ELSE brier_multiclass_se END AS brier_se,
+        -- Wilson (1927) score interval of accuracy = k / n
+        (accuracy + z * z / (2 * evaluated_rows)) / (1 + z * z / evaluated_rows) AS wilson_center,
+        z / (1 + z * z / evaluated_rows)
+            * sqrt(accuracy * (1 - accuracy) / evaluated_rows
+                   + z * z / (4 * evaluated_rows * evaluated_rows)) AS wilson_half
+    FROM measured
 )
 SELECT
     period, {{version_col}}{{segments}},
@@ -68,15 +105,20 @@ SELECT
     labelled_rows::BIGINT AS labelled_rows,
     labelled_rows / rows AS label_coverage,
     evaluated_rows::BIGINT AS evaluated_rows,
-    sum_loss / nullif(evaluated_rows, 0) AS cross_entropy,
-    CASE WHEN evaluated_rows > 1 THEN
-        sqrt(greatest(sum_loss_sq - sum_loss * sum_loss / evaluated_rows, 0)
-             / (evaluated_rows - 1) / evaluated_rows) END AS cross_entropy_se,
-    exp(sum_loss / nullif(evaluated_rows, 0)) AS perplexity,
-    correct_rows / nullif(evaluated_rows, 0) AS accuracy,
-    CASE WHEN two_class_rows = evaluated_rows THEN positive_brier
-         ELSE sum_brier / nullif(evaluated_rows, 0) END AS brier,
-    sum_brier / nullif(evaluated_rows, 0) AS brier_multiclass,
+    cross_entropy,
+    cross_entropy_se,
+    cross_entropy - z * cross_entropy_se AS cross_entropy_low,
+    cross_entropy + z * cross_entropy_se AS cross_entropy_high,
+    exp(cross_entropy) AS perplexity,
+    accuracy,
+    greatest(wilson_center - wilson_half, 0) AS accuracy_low,
+    least(wilson_center + wilson_half, 1) AS accuracy_high,
+    brier,
+    brier_se,
+    brier - z * brier_se AS brier_low,
+    brier + z * brier_se AS brier_high,
+    brier_multiclass,
+    brier_multiclass_se,
     calibration_gap / nullif(evaluated_rows, 0) AS ece,
     sum_confidence / nullif(scored_rows, 0) AS mean_confidence,
     sum_entropy / nullif(scored_rows, 0) AS mean_entropy,
@@ -86,5 +128,5 @@ SELECT
     infinite_loss_rows::BIGINT AS infinite_loss_rows,
     base_rate, mean_positive_probability, roc_auc, roc_auc_bound, average_precision,
     average_precision_bound
-FROM cells
+FROM intervals
 ORDER BY ALL

@@ -191,7 +191,7 @@ def test_a_store_of_an_earlier_format_asks_for_an_update_which_migrates_it(
     same_table, con, demo, tmp_path
 ):
     """Format 2 had no per-class states: queries ask for an update, and the update
-    recomputes every day into format 3."""
+    recomputes every day into format 4."""
     store = tmp_path / "store"
     partials.update(con, demo, store)
     manifest = json.loads((store / "manifest.json").read_text())
@@ -200,7 +200,7 @@ def test_a_store_of_an_earlier_format_asks_for_an_update_which_migrates_it(
     with pytest.raises(DbmetricsError, match="class_state.*partials update"):
         run_query(con, "class_metrics", {"partials": str(store)})
     partials.update(con, demo, store)
-    assert json.loads((store / "manifest.json").read_text())["format"] == "dbmetrics-partials/3"
+    assert json.loads((store / "manifest.json").read_text())["format"] == "dbmetrics-partials/4"
     same_table(
         run_query(con, "class_metrics", demo),
         run_query(con, "class_metrics", {"partials": str(store)}),

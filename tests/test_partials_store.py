@@ -401,7 +401,54 @@ def test_a_format_1_store_is_read_and_migrated(con, demo_tables, tmp_path, same_
     (store / "manifest.json").write_text(json.dumps(old))
     store_equals_scan(con, same_table, params, store)
     assert partials.update(con, params, store)["days_written"] == 70
-    assert Store(store).manifest()["format"] == "dbmetrics-partials/3"
+    assert Store(store).manifest()["format"] == "dbmetrics-partials/4"
+
+
+def test_a_format_3_store_answers_without_brier_standard_errors_until_migrated(
+    con, demo_tables, tmp_path, same_table
+):
+    """Format 3 wrote STATE without sum_brier_sq. Such a store answers with the Brier standard
+    errors NULL; the next update recomputes its days into format 4, and a day whose rows left
+    the logs keeps its format-3 file: only the periods holding it lose the standard errors."""
+    logs, labels = demo_tables
+    week = pc.less(logs["ts"], pa.scalar(START + dt.timedelta(days=7), pa.timestamp("us")))
+    write(logs.filter(week), tmp_path / "logs" / "first.parquet")
+    write(logs.filter(pc.invert(week)), tmp_path / "logs" / "rest.parquet")
+    labelled = {"labels": write(labels, tmp_path / "labels.parquet"), "id_col": "prediction_id"}
+    params = {"logs": str(tmp_path / "logs"), **labelled}
+    everything = {"logs": write(logs, tmp_path / "all.parquet"), **labelled}
+    store = tmp_path / "store"
+    partials.update(con, params, store)
+    manifest = json.loads((store / "manifest.json").read_text())
+    for entry in manifest["days"].values():
+        path = store / entry["files"]["state"]
+        pq.write_table(pq.read_table(path).drop_columns(["sum_brier_sq"]), path)
+    manifest["format"] = "dbmetrics-partials/3"
+    (store / "manifest.json").write_text(json.dumps(manifest))
+    se = ("brier_se", "brier_low", "brier_high", "brier_multiclass_se")
+
+    def rollups():
+        scan = run_query(con, "rollup", everything)
+        kept = run_query(con, "rollup", {"partials": str(store)})
+        return scan, kept
+
+    scan, old = rollups()
+    same_table(scan.drop_columns(list(se)), old.drop_columns(list(se)))
+    assert all(old[c].null_count == old.num_rows for c in se)
+    for query in ("calibration", "class_metrics", "drift"):  # the other kinds kept format 3's
+        same_table(run_query(con, query, params), run_query(con, query, {"partials": str(store)}))
+
+    (tmp_path / "logs" / "first.parquet").unlink()  # retention
+    summary = partials.update(con, params, store)
+    assert summary["days_written"] == 63 and summary["days_stale"] == 7
+    assert Store(store).manifest()["format"] == "dbmetrics-partials/4"
+    scan, migrated = rollups()  # the stored first week still answers as the logs did
+    first = pc.equal(migrated["period"], pa.scalar(START.date()))
+    same_table(scan.filter(pc.invert(first)), migrated.filter(pc.invert(first)))
+    same_table(
+        scan.filter(first).drop_columns(list(se)), migrated.filter(first).drop_columns(list(se))
+    )
+    assert all(migrated.filter(first)[c].null_count == pc.sum(first).as_py() for c in se)
 
 
 def test_the_cli_reuses_the_recorded_roles_and_ctrl_c_publishes_nothing(

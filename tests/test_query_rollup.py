@@ -13,6 +13,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 from scipy.special import logsumexp
+from scipy.stats import binomtest, norm
 from sklearn.calibration import calibration_curve
 
 import dbmetrics
@@ -130,6 +131,7 @@ def expected_rollup(rows, keys, grain="week", bins=15):
             return sum(1 for issue, _, _ in items if issue == wanted)
 
         loss = np.array([s["loss"] for s in ok])
+        brier = np.array([s["brier"] for s in ok])
         n = len(ok)
         out[key] = {
             "rows": len(items),
@@ -139,7 +141,10 @@ def expected_rollup(rows, keys, grain="week", bins=15):
             "cross_entropy_se": loss.std(ddof=1) / np.sqrt(n) if n > 1 else None,
             "perplexity": np.exp(loss.mean()) if n else None,
             "accuracy": np.mean([s["correct"] for s in ok]) if n else None,
-            "brier": np.mean([s["brier"] for s in ok]) if n else None,
+            "brier": brier.mean() if n else None,
+            # the standard error of a mean from the row-level values
+            "brier_se": brier.std(ddof=1) / np.sqrt(n) if n > 1 else None,
+            "brier_multiclass_se": brier.std(ddof=1) / np.sqrt(n) if n > 1 else None,
             "ece": ece_mce(ok, bins)[0] if n else None,
             "mean_confidence": np.mean([s["conf"] for s in scored]) if scored else None,
             "mean_entropy": np.mean([s["entropy"] for s in scored]) if scored else None,
@@ -187,10 +192,18 @@ ROLLUP_COLUMNS = [
     "evaluated_rows",
     "cross_entropy",
     "cross_entropy_se",
+    "cross_entropy_low",
+    "cross_entropy_high",
     "perplexity",
     "accuracy",
+    "accuracy_low",
+    "accuracy_high",
     "brier",
+    "brier_se",
+    "brier_low",
+    "brier_high",
     "brier_multiclass",
+    "brier_multiclass_se",
     "ece",
     "mean_confidence",
     "mean_entropy",
@@ -225,6 +238,28 @@ def check_rollup(table, expected, keys):
         for column, value in want.items():
             assert_close(got[key][column], value, f"{key} {column}")
         assert_close(got[key]["label_coverage"], want["labelled_rows"] / want["rows"], key)
+        check_intervals(got[key], want["evaluated_rows"], f"{key}")
+
+
+Z = norm.ppf(0.975)
+
+
+def check_intervals(row, n, what):
+    """accuracy_low/high against scipy.stats.binomtest(k, n).proportion_ci(method='wilson')
+    (Wilson 1927); the cross-entropy and Brier intervals as mean -+ z SE, z = norm.ppf(0.975)."""
+    if n == 0:
+        assert row["accuracy_low"] is None and row["accuracy_high"] is None
+        return
+    k = round(row["accuracy"] * n)
+    ci = binomtest(k, n).proportion_ci(confidence_level=0.95, method="wilson")
+    assert_close(row["accuracy_low"], ci.low, f"{what} accuracy_low", rel=1e-12)
+    assert_close(row["accuracy_high"], ci.high, f"{what} accuracy_high", rel=1e-12)
+    for metric in ("cross_entropy", "brier"):
+        se = row[f"{metric}_se"]
+        low = None if se is None else row[metric] - Z * se
+        high = None if se is None else row[metric] + Z * se
+        assert_close(row[f"{metric}_low"], low, f"{what} {metric}_low", rel=1e-12)
+        assert_close(row[f"{metric}_high"], high, f"{what} {metric}_high", rel=1e-12)
 
 
 @pytest.mark.parametrize("grain", ["day", "week", "month"])
@@ -459,7 +494,10 @@ def test_other_score_kinds_match_numpy(con, tmp_path, kind):
             if column == "brier":  # two classes: brier is the positive class's, half the sum
                 assert_close(row["brier_multiclass"], value, f"{kind} brier_multiclass")
                 value = value / 2
+            if column == "brier_se":  # sklearn's row score (p1 - y)^2, its mean's SE
+                value = np.std((p1 - labels) ** 2, ddof=1) / np.sqrt(n)
             assert_close(row[column], value, f"{kind} {column}")
+        check_intervals(row, n, kind)
 
 
 def test_segments_joins_business_table(con, logs, tmp_path):

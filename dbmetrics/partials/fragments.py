@@ -7,6 +7,8 @@ column roles a store was built with are fixed: a query that gives one with anoth
 is refused, naming the parameter and both values.
 """
 
+from collections import Counter
+
 import pyarrow.parquet as pq
 
 from dbmetrics.errors import DbmetricsError
@@ -21,11 +23,23 @@ UNAVAILABLE = None  # a store keeps sums, not predictions: render refuses {{pred
 FIXED = ("time_col", "scores_col", "scores_kind", "label_col", "labels", "id_col", "classes")
 
 
-def summed(kind: StateKind, keys: str, param: str) -> str:
-    """SELECT day, keys, the kind's own keys, the sums of its additive columns."""
+def summed(kind: StateKind, keys: str, param: str, lacking: dict | None = None) -> str:
+    """SELECT day, keys, the kind's own keys, the sums of its additive columns. `lacking`:
+    {column: whether every file lacks it} for the sums some files were written without (an
+    earlier store format); those files count as NaN in them, so a sum over any such day is
+    NaN rather than a sum over part of the days."""
+    lacking = lacking or {}
+
+    def sum_of(column: str) -> str:
+        if column not in lacking:
+            return kind.summed(column)
+        value = "'NaN'::DOUBLE" if lacking[column] else f"coalesce({column}, 'NaN'::DOUBLE)"
+        return f"fsum({value}) AS {column}"
+
     own = ", ".join(kind.keys)
-    sums = ",\n    ".join(kind.summed(c) for c in kind.columns)
-    return f"SELECT day, {keys}, {own},\n    {sums}\nFROM read_parquet(${param})\nGROUP BY ALL"
+    sums = ",\n    ".join(sum_of(c) for c in kind.columns)
+    source = f"read_parquet(${param}{', union_by_name = true' if lacking else ''})"
+    return f"SELECT day, {keys}, {own},\n    {sums}\nFROM {source}\nGROUP BY ALL"
 
 
 def check_roles(recorded: dict, logs, texts: dict, given: dict, root) -> None:
@@ -76,9 +90,12 @@ def store_fragments(texts: dict, given: dict | None = None) -> tuple:
             f"partials: the store {s.root} lists {len(absent)} file(s) that are gone "
             f"(first {absent[0]}); `dbmetrics partials update` recomputes them"
         )
+    files = {kind.name: 0 for kind in STATE_KINDS}
+    older = {kind.name: Counter() for kind in STATE_KINDS}  # files lacking each column
     for entry in manifest["days"].values():
         for kind, rel in entry["files"].items():
-            check(kind, pq.read_schema(s.root / rel), str(s.root / rel))
+            files[kind] += 1
+            older[kind].update(check(kind, pq.read_schema(s.root / rel), str(s.root / rel)))
     keys = ", ".join(quote(c) for c in (version, *segments))
     fragments = {
         **key_fragments(version, segments),
@@ -102,6 +119,11 @@ def store_fragments(texts: dict, given: dict | None = None) -> tuple:
         if lacking:  # refused by render only when the query reads this kind
             fragments[kind.name] = None
             continue
-        fragments[kind.name] = summed(kind, keys, f"partials_{kind.name}")
+        fragments[kind.name] = summed(
+            kind,
+            keys,
+            f"partials_{kind.name}",
+            {c: n == files[kind.name] for c, n in older[kind.name].items()},
+        )
         bound[f"partials_{kind.name}"] = s.files(kind.name, manifest)
     return fragments, bound

@@ -21,11 +21,14 @@ from dbmetrics.queries.state_sql import CLASS_STATE_COLUMNS, STATE_COLUMNS
 @dataclass(frozen=True)
 class StateKind:
     """name: store folder, {{placeholder}} and bound parameter `partials_<name>`;
-    keys: key columns beyond day x version x segments; columns: the additive columns."""
+    keys: key columns beyond day x version x segments; columns: the additive columns;
+    added: (column, format version) pairs, the `sum_*` columns that day files written
+    before that store format lack (they are read as NaN, see `lacking`)."""
 
     name: str
     keys: tuple
     columns: tuple
+    added: tuple = ()
 
     def summed(self, column: str) -> str:
         """The SQL that adds `column` across files: fsum for sums, an exact BIGINT sum else."""
@@ -39,7 +42,7 @@ def additive(columns: tuple, keys: tuple) -> tuple:
 
 
 STATE_KINDS = (
-    StateKind("state", ("bin",), additive(STATE_COLUMNS, ("bin",))),
+    StateKind("state", ("bin",), additive(STATE_COLUMNS, ("bin",)), (("sum_brier_sq", 4),)),
     StateKind("class_state", ("class",), additive(CLASS_STATE_COLUMNS, ("class",))),
     *(StateKind(name, keys, sums) for name, (keys, sums) in EXTRA_STATES.items()),
 )
@@ -84,9 +87,10 @@ def key_type(t: pa.DataType) -> pa.DataType:
     return t
 
 
-def declared(kind: str, schema: pa.Schema) -> pa.Schema:
+def declared(kind: str, schema: pa.Schema, without: tuple = ()) -> pa.Schema:
     """The declared schema of a `kind` day file whose version and segment columns are those
-    of `schema` (every column that is not `day` nor one of the kind's own)."""
+    of `schema` (every column that is not `day` nor one of the kind's own); `without`: the
+    columns added after the format the file was written in."""
     k = KINDS_BY_NAME[kind]
     own = ("day", *k.keys, *k.columns)
     keys = [f for f in schema if f.name not in own]
@@ -94,7 +98,7 @@ def declared(kind: str, schema: pa.Schema) -> pa.Schema:
         [
             pa.field("day", column_type("day")),
             *(pa.field(f.name, key_type(f.type)) for f in keys),
-            *(pa.field(c, column_type(c)) for c in (*k.keys, *k.columns)),
+            *(pa.field(c, column_type(c)) for c in (*k.keys, *k.columns) if c not in without),
         ]
     )
 
@@ -108,13 +112,21 @@ def conform(kind: str, table: pa.Table) -> pa.Table:
     return table.select(schema.names).cast(schema)
 
 
-def check(kind: str, schema: pa.Schema, where: str) -> None:
-    """Refuse a day file whose schema is not the declared one (names, order, types)."""
-    expected = declared(kind, schema)
-    if not schema.remove_metadata().equals(expected):
-        got = ", ".join(f"{f.name} {f.type}" for f in schema)
-        want = ", ".join(f"{f.name} {f.type}" for f in expected)
-        raise DbmetricsError(
-            f"partials: {where} does not have the declared {kind} schema; has ({got}), "
-            f"expected ({want}); recompute it with `partials update --full`"
-        )
+def lacking(kind: str, version: int) -> tuple:
+    """The columns of `kind` that a day file written in store format `version` lacks."""
+    return tuple(c for c, since in KINDS_BY_NAME[kind].added if version < since)
+
+
+def check(kind: str, schema: pa.Schema, where: str) -> tuple:
+    """Refuse a day file whose schema is neither the declared one nor that of an earlier
+    store format (names, order, types); return the columns it lacks (empty when current)."""
+    versions = sorted({since for _, since in KINDS_BY_NAME[kind].added})
+    for without in ((), *(lacking(kind, v - 1) for v in reversed(versions))):
+        if schema.remove_metadata().equals(declared(kind, schema, without)):
+            return without
+    got = ", ".join(f"{f.name} {f.type}" for f in schema)
+    want = ", ".join(f"{f.name} {f.type}" for f in declared(kind, schema))
+    raise DbmetricsError(
+        f"partials: {where} does not have the declared {kind} schema; has ({got}), "
+        f"expected ({want}); recompute it with `partials update --full`"
+    )

@@ -1,8 +1,8 @@
 """The manifest of a partials store: its format, and the checks that turn a damaged or
 hand-edited manifest into one clear line.
 
-Format version 3 (`"format": "dbmetrics-partials/3"`; version 2 had the same layout, without
-the per-class states):
+Format version 4 (`"format": "dbmetrics-partials/4"`; version 3 had the same layout, with
+STATE files lacking `sum_brier_sq`; version 2 also lacked the per-class states):
 
     generation    whole number, +1 per published update
     column_roles  the column-role parameters the store was built with (and `timezone`)
@@ -16,10 +16,14 @@ the per-class states):
 A day key is the day as DuckDB writes a DATE (`2026-01-05`, `12000-01-01`,
 `0044-03-15 (BC)`, `infinity`), or `null` for rows whose time is NULL.
 
+Earlier stores are read with the files they have, and the next update recomputes every day
+still in the logs once and writes version 4 (their fingerprints are dropped on reading).
 Version 1 stores (no fingerprints, no time zone) and version 2 stores (class_state without
 the per-class sums, no class_bin_state, confusion_state, binary_state) are read with their
-STATE only: queries of the other kinds ask for an update, and the next update recomputes
-every day once and writes version 3.
+STATE only: queries of the other kinds ask for an update. A STATE file written before
+version 4 lacks `sum_brier_sq` (kinds.py: `StateKind.added`): it reads as NaN, so the
+Brier standard errors of the periods holding such a day are NULL; a day kept after its
+rows left the logs keeps its file.
 """
 
 import datetime as dt
@@ -30,7 +34,7 @@ from dbmetrics.errors import DbmetricsError
 from .kinds import KIND_NAMES
 
 PREFIX = "dbmetrics-partials/"
-VERSION = 3
+VERSION = 4
 FORMAT = f"{PREFIX}{VERSION}"
 NULL_DAY = "null"
 DAY_KEY = re.compile(r"null|-?infinity|[0-9]{4,}-[0-9]{2}-[0-9]{2}(?: \(BC\))?")
@@ -79,7 +83,8 @@ def day_file(kind: str, key: str, generation: int) -> str:
 
 
 def validated(data, where: str) -> dict:
-    """The manifest in the version-2 shape, or a DbmetricsError naming what is wrong."""
+    """The manifest in the version-2 shape (and later), or a DbmetricsError naming what is
+    wrong."""
 
     def bad(what: str):
         raise DbmetricsError(f"partials: {where}: {what}; rebuild the store or restore the file")
@@ -89,7 +94,7 @@ def validated(data, where: str) -> dict:
             f"partials: {where} is not a dbmetrics partials manifest (expected format {FORMAT})"
         )
     version = data["format"][len(PREFIX) :]
-    if version not in ("1", "2", "3"):
+    if version not in ("1", "2", "3", "4"):
         raise DbmetricsError(
             f"partials: {where} has format {data['format']}, written by a newer dbmetrics; "
             f"this one reads {PREFIX}1 to {FORMAT}"
@@ -148,8 +153,10 @@ def day_entry(entry, key: str, version: str, bad) -> dict:
             bad(f"day `{key}` has a malformed `fingerprint`")
     if not isinstance(files, dict) or not files:
         bad(f"day `{key}` lists no files")
-    if version in ("1", "2"):  # only STATE still has the columns of version 3
-        files, fingerprint = {k: v for k, v in files.items() if k == "state"}, None
+    if version in ("1", "2"):  # only STATE has the columns of version 3
+        files = {k: v for k, v in files.items() if k == "state"}
+    if version != str(VERSION):  # the next update recomputes the day in the current format
+        fingerprint = None
     for kind, path in files.items():
         match = DAY_FILE.fullmatch(path) if isinstance(path, str) else None
         if kind not in KIND_NAMES or match is None or match.group(1) != kind:

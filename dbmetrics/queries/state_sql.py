@@ -8,7 +8,8 @@ STATE: one row per day x version x segments x calibration bin (bin NULL for unsc
     rows, labelled_rows, missing_scores, invalid_scores, scored_rows, bad_labels,
     infinite_loss_rows, evaluated_rows, correct_rows,           -- BIGINT counts
     sum_confidence, sum_entropy,                                -- over scored rows
-    sum_loss, sum_loss_sq, sum_brier, sum_confidence_evaluated  -- over evaluated rows
+    sum_loss, sum_loss_sq, sum_brier, sum_brier_sq,             -- over evaluated rows
+    sum_confidence_evaluated
 CLASS_STATE: one row per day x version x segments x class (scored rows only)
     sum_prob (sum of predicted probabilities), predicted_rows (argmax = class),
     label_rows (label = class, label in range), and sums over evaluated rows for the
@@ -63,6 +64,7 @@ STATE_COLUMNS = (
     "sum_loss",
     "sum_loss_sq",
     "sum_brier",
+    "sum_brier_sq",
     "sum_confidence_evaluated",
 )
 CLASS_STATE_COLUMNS = (
@@ -232,6 +234,7 @@ def state(roles: ColumnRoles, window: bool = False, rows: str | None = None) -> 
     coalesce(fsum(stats.loss) FILTER (WHERE evaluated), 0) AS sum_loss,
     coalesce(fsum(stats.loss * stats.loss) FILTER (WHERE evaluated), 0) AS sum_loss_sq,
     coalesce(fsum(stats.brier) FILTER (WHERE evaluated), 0) AS sum_brier,
+    coalesce(fsum(stats.brier * stats.brier) FILTER (WHERE evaluated), 0) AS sum_brier_sq,
     coalesce(fsum(stats.confidence) FILTER (WHERE evaluated), 0) AS sum_confidence_evaluated
 FROM {nested(evaluated)}
 GROUP BY ALL"""
