@@ -1,15 +1,15 @@
 -- name: drift
--- summary: One row per period x version (x segment) compared with a reference window: prediction, confidence and label distribution shift, change in cross-entropy and ECE, and a flag when a change is larger than chance or a threshold.
+-- summary: One row per period x version (x segment) compared with a reference window: prediction, confidence and label distribution shift, change in cross-entropy and ECE, each test's p-value and Benjamini-Hochberg q-value across the table, and a flag when a change is both significant at the false discovery rate fdr and larger than its threshold.
 -- include: column_roles
 -- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column roles must cover version_col and segment_cols
 -- param ref_start (date): first day of the reference window (default: the first day in the data)
 -- param ref_end (date): last day of the reference window (default: the end of the 4th period from ref_start's period)
--- param z (number(0..), default 4): flag a cross-entropy change when |cross_entropy_z| > z; also sets the chance level each divergence must pass (see notes)
+-- param fdr (number(>0..<1), default 0.05): false discovery rate: a test can flag its cell only when its q-value (Benjamini-Hochberg 1995, over every test of every tested cell of the table) is at most fdr
 -- param min_rows (integer(0..), default 200): a cell or reference with fewer scored (for label tests: evaluated) rows is never flagged
--- param js_threshold (number(0..), default 0.01): flag when prediction_js exceeds this (nats) and its chance level
--- param psi_threshold (number(0..), default 0.25): flag when confidence_psi exceeds this and its chance level; common practice (a rule of thumb, no single source): < 0.1 stable, 0.1-0.25 moderate, > 0.25 major
--- param label_js_threshold (number(0..), default 0.02): flag when label_js exceeds this (nats) and its chance level
--- param ece_threshold (number(0..), default 0.1): flag when |ece_delta| exceeds this and z times the chance ECE of cell and reference (see notes)
+-- param js_threshold (number(0..), default 0.01): flag when prediction_js exceeds this (nats) and its q-value is at most fdr
+-- param psi_threshold (number(0..), default 0.25): flag when confidence_psi exceeds this and its q-value is at most fdr; common practice (a rule of thumb, no single source): < 0.1 stable, 0.1-0.25 moderate, > 0.25 major
+-- param label_js_threshold (number(0..), default 0.02): flag when label_js exceeds this (nats) and its q-value is at most fdr
+-- param ece_threshold (number(0..), default 0.1): flag when |ece_delta| exceeds this and its q-value is at most fdr
 -- output period: first day of the period
 -- output in_reference: the period overlaps the reference window; such rows are never flagged
 -- output reference: 'same version' (this version's rows in the window, when it has min_rows scored rows there) or 'all versions' (all versions pooled); always the same segment
@@ -29,13 +29,24 @@
 -- output ece: ECE of the cell (as in rollup)
 -- output ref_ece: ECE of the reference
 -- output ece_delta: ece - ref_ece
--- output flagged: a test passed its limit (see flag_reasons); false in the reference window and below min_rows
--- output flag_reasons: which tests passed their limits, with values; NULL when not flagged
+-- output cross_entropy_p: two-sided p-value of cross_entropy_z, 2 P(Z > |z|) for a standard normal Z; NULL when not tested
+-- output prediction_js_p: p-value of prediction_js, P(X > 8 n_eff prediction_js) for X chi-square with K - 1 degrees of freedom (see notes); NULL when not tested
+-- output confidence_psi_p: p-value of confidence_psi, P(X > n_eff confidence_psi) for X chi-square with bins - 1 degrees of freedom; NULL when not tested
+-- output label_js_p: p-value of label_js, as prediction_js_p with the labelled rows; NULL when not tested
+-- output ece_p: p-value of ece_delta (a heuristic, see notes); NULL when not tested
+-- output cross_entropy_q: Benjamini-Hochberg q-value of cross_entropy_p over every p-value of the table (see notes)
+-- output prediction_js_q: q-value of prediction_js_p
+-- output confidence_psi_q: q-value of confidence_psi_p
+-- output label_js_q: q-value of label_js_p
+-- output ece_q: q-value of ece_p
+-- output flagged: a test passed its limits (see flag_reasons); false in the reference window and below min_rows
+-- output flag_reasons: which tests passed their limits, with values and q-values; NULL when not flagged
 -- note: smoothing: every class of the mean predicted distribution (as a sum of probabilities), every label count and every confidence-bin count gets +0.5 before normalising (Jeffreys prior), on both sides, so empty bins give finite divergences. K = the largest class index in the data + 1.
--- note: prediction_kl is reported, not flagged on (unbounded, asymmetric); prediction_js, confidence_psi, label_js, ece_delta and cross_entropy_z are flagged on.
--- note: chance levels: two samples of sizes n and m (n_eff = nm/(n+m)) from one distribution over D bins give 8 n_eff JS and n_eff PSI of about chi-square(D - 1); a divergence is flagged only above max(threshold, ((D - 1) + z sqrt(2 (D - 1))) / (8 n_eff)), resp. / n_eff for PSI. D = K classes or bins; n = scored rows (labelled rows for label_js). For mean predicted probabilities this chance level is conservative.
--- note: chance ECE (a heuristic): the expected ECE of a perfectly calibrated model with the same bin counts and accuracies, sqrt(2/pi) sum_b sqrt(n_b acc_b (1 - acc_b)) / n; ECE is biased upward by about this much, so small cells differ by chance.
--- note: the cross-entropy test treats cell and reference as independent samples and pools their variance (under "no change" they share it; this keeps the cell's mean and its standard error from moving together, which a skewed loss otherwise turns into extra false alarms). The default z = 4 lets about 6 in 100,000 clean cells pass by chance (two-sided normal tail), so a weekly table of hundreds of cells stays quiet; z = 3 (0.3%) is more sensitive and noisier.
+-- note: prediction_kl is reported, not flagged on (unbounded, asymmetric); prediction_js, confidence_psi, label_js, ece_delta and cross_entropy_z are tested, each flagging its cell when its q-value is at most fdr and its effect passes its threshold (cross_entropy: the q-value alone).
+-- note: divergence p-values: two samples of sizes n and m (n_eff = nm/(n+m)) from one distribution over D bins give 8 n_eff JS and n_eff PSI of about chi-square(D - 1); the p-value is that chi-square's survival function, computed exactly for whole D - 1 (the closed form of the regularised upper incomplete gamma function at half-integers). D = K classes or bins; n = scored rows (labelled rows for label_js). For mean predicted probabilities the p-value is conservative (too large).
+-- note: chance ECE (a heuristic): the expected ECE of a perfectly calibrated model with the same bin counts and accuracies, sqrt(2/pi) sum_b sqrt(n_b acc_b (1 - acc_b)) / n; ECE is biased upward by about this much, so small cells differ by chance. ece_p takes |ece_delta| / (chance ECE of cell + of reference) as a standard normal |Z| (conservative: the sum of the chance ECEs is larger than the standard deviation of ece_delta).
+-- note: the cross-entropy test treats cell and reference as independent samples and pools their variance (under "no change" they share it; this keeps the cell's mean and its standard error from moving together, which a skewed loss otherwise turns into extra false alarms).
+-- note: multiplicity: a table of hundreds of cells with five tests each would flag some clean cells at any fixed per-test level. The q-values control the false discovery rate over the whole table (Benjamini and Hochberg 1995, valid for independent or positively dependent tests): sort the m p-values of the tested cells, p_(1) <= ... <= p_(m); q_(i) = min over j >= i of min(1, p_(j) m / j) (as scipy.stats.false_discovery_control(p, method='bh')). Flagging the tests with q <= fdr keeps the expected share of clean tests among the flagged ones at most fdr. The table is the query's: period filters (run --since/--until/--last) cut rows after the q-values are computed.
 -- show: period, version_col, segment_cols, flagged, flag_reasons, prediction_js, confidence_psi, label_js, cross_entropy_z, ece_delta, cross_entropy_delta, rows, reference
 -- example: dbmetrics run drift --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set segment_cols=region --set ref_start=2026-01-05 --set ref_end=2026-02-01
 WITH
@@ -147,31 +158,72 @@ measured AS (
            ece - ref_ece AS ece_delta,
            NOT in_reference AND scored_rows >= $min_rows AND ref_scored_rows >= $min_rows AS tested,
            tested AND evaluated_rows >= $min_rows AND ref_evaluated_rows >= $min_rows AS label_tested,
-           -- Chance levels: for two samples (sizes n, m; n_eff = nm/(n+m)) of one distribution
-           -- over D bins, 8 n_eff JS and n_eff PSI are both about chi-square(D - 1); chance is its
-           -- mean plus z standard deviations. Conservative for mean predicted probabilities.
-           ((k - 1) + $z * sqrt(2 * (k - 1)))
-               / (8 * scored_rows * ref_scored_rows / (scored_rows + ref_scored_rows)) AS prediction_chance,
-           (($bins - 1) + $z * sqrt(2 * ($bins - 1)))
-               / (scored_rows * ref_scored_rows / (scored_rows + ref_scored_rows)) AS psi_chance,
-           ((k - 1) + $z * sqrt(2 * (k - 1)))
-               / (8 * labelled * ref_labelled / nullif(labelled + ref_labelled, 0)) AS label_chance
+           -- For two samples (sizes n, m; n_eff = nm/(n+m)) of one distribution over D bins,
+           -- 8 n_eff JS and n_eff PSI are both about chi-square(D - 1).
+           8 * scored_rows * ref_scored_rows / (scored_rows + ref_scored_rows) AS js_scale,
+           8 * labelled * ref_labelled / nullif(labelled + ref_labelled, 0) AS label_scale
     FROM paired AS p, ref_window AS w
+),
+-- One row per test of a tested cell: a standard normal |z| or a chi-square x with d degrees
+-- of freedom.
+tests AS (
+    SELECT cell, t.test, t.z, t.x, t.d
+    FROM measured, unnest([
+        {'test': 'cross_entropy', 'z': abs(cross_entropy_z), 'x': NULL::DOUBLE, 'd': NULL::BIGINT,
+         'run': label_tested},
+        {'test': 'prediction_js', 'z': NULL, 'x': js_scale * prediction_js, 'd': k - 1,
+         'run': tested},
+        {'test': 'confidence_psi', 'z': NULL, 'x': js_scale / 8 * confidence_psi, 'd': $bins - 1,
+         'run': tested},
+        {'test': 'label_js', 'z': NULL, 'x': label_scale * label_js, 'd': k - 1,
+         'run': label_tested},
+        {'test': 'ece', 'z': abs(ece_delta) / nullif(ece_noise + ref_ece_noise, 0), 'x': NULL,
+         'd': NULL, 'run': label_tested}]) AS u(t)
+    WHERE t.run AND coalesce(t.z, t.x) IS NOT NULL AND coalesce(t.d, 1) >= 1
+),
+-- p-values. Normal: 2 P(Z > z). Chi-square: the regularised upper incomplete gamma function
+-- Q(d/2, x/2) in closed form for whole d: sum over a = d/2 - 1, d/2 - 2, ... >= 0 of
+-- exp(-x/2) (x/2)^a / Gamma(a + 1), plus erfc(sqrt(x/2)) = 2 P(Z > sqrt x) for odd d.
+p_values AS (
+    SELECT cell, test, CASE
+        WHEN z IS NOT NULL THEN least(2 * normal_sf(z), 1.0)
+        WHEN x <= 0 THEN 1.0
+        ELSE least(CASE WHEN d % 2 = 1 THEN 2 * normal_sf(sqrt(x)) ELSE 0.0 END
+                   + coalesce(list_sum(list_transform(range(d % 2, d - 1, 2), lambda j:
+                         exp(-x / 2 + j / 2 * ln(x / 2) - lgamma(j / 2 + 1)))), 0.0), 1.0)
+        END AS p
+    FROM tests
+),
+-- Benjamini-Hochberg over every test of the table: i = rank of p (1 = smallest), m tests;
+-- q_(i) = min over j >= i of min(1, p_(j) m / j).
+q_values AS (
+    SELECT cell, test, p,
+           least(min(p * m / i) OVER (ORDER BY i DESC ROWS UNBOUNDED PRECEDING), 1.0) AS q
+    FROM (SELECT *, row_number() OVER (ORDER BY p) AS i, count(*) OVER () AS m FROM p_values)
+),
+judged AS (
+    SELECT m.*, pq.* EXCLUDE (cell)
+    FROM measured AS m
+    LEFT JOIN (
+        PIVOT q_values ON test IN ('cross_entropy', 'prediction_js', 'confidence_psi',
+                                   'label_js', 'ece')
+        USING any_value(p) AS p, any_value(q) AS q GROUP BY cell
+    ) AS pq USING (cell)
 ),
 reasons AS (
     SELECT *, concat_ws('; ',
-        CASE WHEN label_tested AND abs(cross_entropy_z) > $z
-             THEN printf('cross_entropy %+.4f (z = %.1f)', cross_entropy_delta, cross_entropy_z) END,
-        CASE WHEN tested AND prediction_js > greatest($js_threshold, prediction_chance)
-             THEN printf('prediction_js %.4f', prediction_js) END,
-        CASE WHEN tested AND confidence_psi > greatest($psi_threshold, psi_chance)
-             THEN printf('confidence_psi %.3f', confidence_psi) END,
-        CASE WHEN label_tested AND label_js > greatest($label_js_threshold, label_chance)
-             THEN printf('label_js %.4f', label_js) END,
-        CASE WHEN label_tested AND abs(ece_delta) > greatest($ece_threshold,
-                                                             $z * (ece_noise + ref_ece_noise))
-             THEN printf('ece %+.4f', ece_delta) END) AS reasons
-    FROM measured
+        CASE WHEN cross_entropy_q <= $fdr
+             THEN printf('cross_entropy %+.4f (z = %.1f, q = %.2g)', cross_entropy_delta,
+                         cross_entropy_z, cross_entropy_q) END,
+        CASE WHEN prediction_js_q <= $fdr AND prediction_js > $js_threshold
+             THEN printf('prediction_js %.4f (q = %.2g)', prediction_js, prediction_js_q) END,
+        CASE WHEN confidence_psi_q <= $fdr AND confidence_psi > $psi_threshold
+             THEN printf('confidence_psi %.3f (q = %.2g)', confidence_psi, confidence_psi_q) END,
+        CASE WHEN label_js_q <= $fdr AND label_js > $label_js_threshold
+             THEN printf('label_js %.4f (q = %.2g)', label_js, label_js_q) END,
+        CASE WHEN ece_q <= $fdr AND abs(ece_delta) > $ece_threshold
+             THEN printf('ece %+.4f (q = %.2g)', ece_delta, ece_q) END) AS reasons
+    FROM judged
 )
 SELECT
     period, {{version_col}}{{segments}},
@@ -185,6 +237,8 @@ SELECT
     prediction_kl, prediction_js, confidence_psi, label_js,
     cross_entropy, ref_cross_entropy, cross_entropy_delta, cross_entropy_z,
     ece, ref_ece, ece_delta,
+    cross_entropy_p, prediction_js_p, confidence_psi_p, label_js_p, ece_p,
+    cross_entropy_q, prediction_js_q, confidence_psi_q, label_js_q, ece_q,
     reasons <> '' AS flagged,
     nullif(reasons, '') AS flag_reasons
 FROM reasons

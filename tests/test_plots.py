@@ -263,7 +263,7 @@ def drift_like(versions=("v1",), regions=("alpine", "north")):
                         "cross_entropy_se": 0.01 * (week + 1),
                         "flagged": region in ("alpine", "north") and week == 5,
                         "flag_reasons": {
-                            "alpine": "cross_entropy +0.1 (z = 5.0); prediction_js 0.0060",
+                            "alpine": "cross_entropy +0.1 (z = 5.0, q = 1e-05); prediction_js 0.0060 (q = 0.002)",
                             "north": "confidence_psi 0.300",
                         }.get(region)
                         if week == 5
@@ -364,16 +364,21 @@ def test_trend_draws_the_measures_own_threshold_from_the_parameters():
     )
     [ring] = [c for c in figure.axes[0].collections if c.get_label() == FLAGGED]
     assert len(ring.get_offsets()) == 1  # north's week 6, flagged for confidence_psi only
-    zs = drift_like().append_column("cross_entropy_z", pa.array([1.0] * 12))
+    ece = drift_like().append_column("ece_delta", pa.array([0.01] * 12))
     figure = plots.trend_figure(
-        zs, "cross_entropy_z", "region", ("model_version", "region"), params={"z": "4"}
+        ece, "ece_delta", "region", ("model_version", "region"), params={"ece_threshold": "0.1"}
     )
     levels = sorted(
         line.get_ydata()[0]
         for line in figure.axes[0].get_lines()
         if line.get_linestyle() == "--" and len(line.get_ydata()) == 2
     )
-    assert levels == [-4.0, 4.0]
+    assert levels == [-0.1, 0.1]
+    # the cross-entropy test has a q-value and no fixed limit: nothing is drawn
+    zs = drift_like().append_column("cross_entropy_z", pa.array([1.0] * 12))
+    figure = plots.trend_figure(zs, "cross_entropy_z", "region", ("model_version", "region"))
+    legend = [t.get_text() for t in figure.axes[0].get_legend().get_texts()]
+    assert not [text for text in legend if text.startswith("threshold")]
 
 
 @needs_matplotlib

@@ -1,15 +1,23 @@
-"""drift: a prediction drift planted in one segment from a given week is flagged there only."""
+"""drift: a prediction drift planted in one segment from a given week is flagged there only;
+p-values against scipy.stats (norm, chi2) and q-values against
+scipy.stats.false_discovery_control (Benjamini and Hochberg 1995)."""
 
 import datetime as dt
+import re
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 from scipy.special import softmax
+from scipy.stats import chi2, false_discovery_control, norm
 
 import dbmetrics
+from dbmetrics.errors import DbmetricsError
+from dbmetrics.plots.flags import reason_names
 from dbmetrics.queries import run_query
+
+TESTS = ("cross_entropy", "prediction_js", "confidence_psi", "label_js", "ece")
 
 START = dt.date(2026, 1, 5)  # a Monday
 DRIFT_WEEK = 6
@@ -23,9 +31,9 @@ def con():
 def write_logs(
     path, seed=31, per_cell=400, weeks=10, k=4, shift=2.0, drift_segment="b", versions=("v1", "v2")
 ):
-    """Labels follow the undrifted model (the seed is fixed: at the default z = 4 about 6 in
-    100,000 clean cells pass the cross-entropy test by chance); from DRIFT_WEEK the drifted segment's model
-    over-predicts class 0 (its logit + shift)."""
+    """Labels follow the undrifted model; from DRIFT_WEEK the drifted segment's model
+    over-predicts class 0 (its logit + shift). Over 40 seeds the default rule flags every
+    planted cell and few clean ones (test_false_discoveries_over_40_seeds)."""
     rng = np.random.default_rng(seed)
     segments = ("a", "b", "c")
     n = per_cell * weeks * len(segments) * len(versions)
@@ -127,3 +135,90 @@ def test_no_segments_compares_whole_log(con, tmp_path):
     rows = run_query(con, "drift", {"logs": path, "version_col": "region"}).to_pylist()
     assert len(rows) == 30 and not any(r["flagged"] for r in rows)
     assert all(r["prediction_js"] < 0.01 and r["label_js"] < 0.01 for r in rows)
+
+
+def test_p_values_are_scipys_and_q_values_benjamini_hochbergs(con, tmp_path):
+    path = write_logs(tmp_path / "logs.parquet", seed=7, shift=0.7)
+    rows = run_query(con, "drift", {"logs": path, "segment_cols": "region"}).to_pylist()
+    tested = [r for r in rows if not r["in_reference"]]
+    assert all(r[f"{t}_p"] is None for r in rows if r["in_reference"] for t in TESTS)
+    for r in tested:
+        n_eff = r["scored_rows"] * r["ref_scored_rows"] / (r["scored_rows"] + r["ref_scored_rows"])
+        label_eff = (
+            r["evaluated_rows"]
+            * r["ref_evaluated_rows"]
+            / (r["evaluated_rows"] + r["ref_evaluated_rows"])
+        )  # every row has a label in [0, K): labelled = evaluated rows
+        expected = {
+            "cross_entropy_p": 2 * norm.sf(abs(r["cross_entropy_z"])),
+            "prediction_js_p": chi2.sf(8 * n_eff * r["prediction_js"], 3),
+            "confidence_psi_p": chi2.sf(n_eff * r["confidence_psi"], 14),
+            "label_js_p": chi2.sf(8 * label_eff * r["label_js"], 3),
+        }
+        for column, p in expected.items():
+            assert r[column] == pytest.approx(p, rel=1e-9, abs=1e-300), column
+    family = [(i, t) for i, r in enumerate(tested) for t in TESTS]
+    q = false_discovery_control([tested[i][f"{t}_p"] for i, t in family], method="bh")
+    assert [tested[i][f"{t}_q"] for i, t in family] == pytest.approx(q, rel=1e-9)
+    # a test flags its cell exactly when q <= fdr and its effect passes its threshold
+    for r in tested:
+        expect = {
+            "cross_entropy": r["cross_entropy_q"] <= 0.05,
+            "prediction_js": r["prediction_js_q"] <= 0.05 and r["prediction_js"] > 0.01,
+            "confidence_psi": r["confidence_psi_q"] <= 0.05 and r["confidence_psi"] > 0.25,
+            "label_js": r["label_js_q"] <= 0.05 and r["label_js"] > 0.02,
+            "ece": r["ece_q"] <= 0.05 and abs(r["ece_delta"]) > 0.1,
+        }
+        assert reason_names(r["flag_reasons"]) == {t for t, e in expect.items() if e}
+    assert any(r["prediction_js_q"] <= 0.05 < r["prediction_js_p"] * len(family) for r in tested)
+
+
+def test_reasons_show_each_q_value(con, tmp_path):
+    path = write_logs(tmp_path / "logs.parquet")
+    rows = run_query(con, "drift", {"logs": path, "segment_cols": "region"}).to_pylist()
+    for r in (r for r in rows if r["flagged"]):
+        for reason in r["flag_reasons"].split("; "):
+            q = float(re.search(r"q = ([0-9.e+-]+)\)$", reason).group(1))
+            assert q == pytest.approx(r[f"{reason.split()[0]}_q"], rel=0.05, abs=1e-300)
+
+
+@pytest.mark.parametrize("fdr", ["0", "1", "-0.1", "1.5"])
+def test_fdr_must_lie_strictly_between_0_and_1(con, tmp_path, fdr):
+    path = write_logs(tmp_path / "logs.parquet", per_cell=20)
+    with pytest.raises(DbmetricsError, match=r"parameter `fdr` must lie in \(0, 1\)"):
+        run_query(con, "drift", {"logs": path, "fdr": fdr})
+
+
+def found_and_false(con, tmp_path, seeds, query="drift", query_dirs=None, shift=2.0) -> dict:
+    """Over the planted-drift logs of `seeds`: planted cells (period x region x version)
+    flagged, clean tested cells flagged, and their totals; `reasons`: the clean cells'
+    flag reasons."""
+    counts = dict.fromkeys(("planted", "found", "clean", "false"), 0)
+    counts["reasons"] = []
+    for seed in seeds:
+        path = write_logs(tmp_path / f"logs{seed}.parquet", seed=seed, shift=shift)
+        params = {"logs": path, "segment_cols": "region"}
+        rows = run_query(con, query, params, query_dirs=query_dirs).to_pylist()
+        cells = {(p, s) for p, s in planted()}
+        for r in rows:
+            if r["in_reference"]:
+                continue
+            kind = (
+                ("planted", "found") if (r["period"], r["region"]) in cells else ("clean", "false")
+            )
+            counts[kind[0]] += 1
+            counts[kind[1]] += bool(r["flagged"])
+            if kind[0] == "clean" and r["flagged"]:
+                counts["reasons"].append(r["flag_reasons"])
+    return counts
+
+
+@pytest.mark.slow
+def test_false_discoveries_over_40_seeds(con, tmp_path):
+    """The numbers in bench/README.md: every planted cell found, at most 5% of the flagged
+    cells clean."""
+    c = found_and_false(con, tmp_path, range(40))
+    assert c["planted"] == 40 * 8 and c["clean"] == 40 * 28
+    print(f"\nplanted found {c['found']}/{c['planted']}, clean flagged {c['false']}/{c['clean']}")
+    assert c["found"] == c["planted"]
+    assert c["false"] <= 0.05 * (c["found"] + c["false"])

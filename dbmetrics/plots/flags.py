@@ -1,7 +1,9 @@
 """Which drift rows were flagged for a given measure, and that measure's threshold.
 
-The drift query's ``flag_reasons`` lists each test that passed its limit as ``NAME value``,
-separated by ``; `` (``cross_entropy`` and ``ece`` for the loss and calibration tests).
+The drift query's ``flag_reasons`` lists each test that passed its limits as ``NAME value
+(q = Q)``, separated by ``; `` (``cross_entropy`` and ``ece`` for the loss and calibration
+tests). A test passes when its q-value is at most ``fdr`` and its effect exceeds its fixed
+threshold; the cross-entropy test has no fixed threshold.
 """
 
 from __future__ import annotations
@@ -25,15 +27,15 @@ THRESHOLD = {
     "prediction_js": ("js_threshold", False),
     "confidence_psi": ("psi_threshold", False),
     "label_js": ("label_js_threshold", False),
-    "cross_entropy_z": ("z", True),
     "ece_delta": ("ece_threshold", True),
 }
 
 
 def reason_names(reasons: str | None) -> set[str]:
-    """``"prediction_js 0.0303; label_js 0.06"`` -> ``{"prediction_js", "label_js"}``.
+    """``"prediction_js 0.0303 (q = 1e-09); label_js 0.06 (q = 0.002)"`` ->
+    ``{"prediction_js", "label_js"}``.
 
-    >>> sorted(reason_names("cross_entropy +0.69 (z = 7.0); prediction_js 0.0303"))
+    >>> sorted(reason_names("cross_entropy +0.69 (z = 7.0, q = 1e-11); prediction_js 0.0303 (q = 1e-09)"))
     ['cross_entropy', 'prediction_js']
     """
     return {part.split()[0] for part in (reasons or "").split("; ") if part.strip()}

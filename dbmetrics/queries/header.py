@@ -55,7 +55,7 @@ KEYED = re.compile(
 TYPE = re.compile(r"([a-z]+)(?:\((.*)\))?")
 CHOICES = re.compile(r"[a-z0-9_]+(?:\|[a-z0-9_]+)*")
 SOURCES = re.compile(r"[a-z_][a-z0-9_]*(?:\s*,\s*[a-z_][a-z0-9_]*)*")
-RANGE = re.compile(r"(-?[0-9.]+)?\.\.(-?[0-9.]+)?")
+RANGE = re.compile(r"(>?-?[0-9.]+)?\.\.(<?-?[0-9.]+)?")  # `>0..<1`: both ends excluded
 NAME = re.compile(r"[a-z][a-z0-9_]*")
 SPEC = re.compile(r"(\w+\([^()]*\)|[^,]*)\s*(?:,(.*))?")
 BOUND = re.compile(r"\$([A-Za-z_][A-Za-z0-9_]*)")
@@ -76,7 +76,8 @@ class Param:
     """One declared parameter. `type` is the header text, e.g. "choice(day|week|month)".
 
     kind: the base type; choices: for choice; sources: the source params a column(s) type
-    is checked against (default: logs); low/high: inclusive bounds of integer/number;
+    is checked against (default: logs); low/high: bounds of integer/number, inclusive
+    unless low_open/high_open (written `>LOW..` and `..<HIGH`);
     default: text as written, None when unset.
     """
 
@@ -90,6 +91,8 @@ class Param:
     sources: tuple = ()
     low: float | None = None
     high: float | None = None
+    low_open: bool = False
+    high_open: bool = False
 
 
 @dataclass(frozen=True)
@@ -237,7 +240,7 @@ def parse_param(text: str, path: Path) -> Param:
         raise DbmetricsError(
             f"{path}: parameter `{name}` has unknown type `{type_text}`; types "
             f"are {', '.join(TYPES)}, with choice(a|b), column(source, ...), "
-            "columns(source, ...), integer(lo..hi), number(lo..hi)"
+            "columns(source, ...), integer(lo..hi), number(lo..hi) (>lo, <hi: ends excluded)"
         )
     if kind == "choice" and arg is None:
         raise DbmetricsError(
@@ -260,13 +263,20 @@ def parse_param(text: str, path: Path) -> Param:
     sources = (
         tuple(s.strip() for s in arg.split(",")) if arg and kind in ("column", "columns") else ()
     )
-    low, high = (
-        (float(x) if x else None for x in arg.split(".."))
-        if arg and kind in ("integer", "number")
-        else (None, None)
-    )
+    low, high = arg.split("..") if arg and kind in ("integer", "number") else ("", "")
     return Param(
-        name, type_text, kind, meaning.strip(), default, required, choices, sources, low, high
+        name,
+        type_text,
+        kind,
+        meaning.strip(),
+        default,
+        required,
+        choices,
+        sources,
+        float(low.lstrip(">")) if low else None,
+        float(high.lstrip("<")) if high else None,
+        low.startswith(">"),
+        high.startswith("<"),
     )
 
 

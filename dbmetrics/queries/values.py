@@ -109,8 +109,17 @@ def convert(p: Param, text: str | None):
 
 
 def in_range(p: Param, value):
-    if (p.low is not None and value < p.low) or (p.high is not None and value > p.high):
-        bounds = f"{'' if p.low is None else fmt(p.low)}..{'' if p.high is None else fmt(p.high)}"
+    """`value` if it lies within p's bounds; else an error naming them (an interval such as
+    (0, 1) when an end is excluded)."""
+    below = p.low is not None and (value <= p.low if p.low_open else value < p.low)
+    above = p.high is not None and (value >= p.high if p.high_open else value > p.high)
+    if below or above:
+        lo, hi = ("" if x is None else fmt(x) for x in (p.low, p.high))
+        bounds = (
+            f"{'(' if p.low_open else '['}{lo}, {hi}{')' if p.high_open else ']'}"
+            if p.low_open or p.high_open
+            else f"{lo}..{hi}"
+        )
         raise DbmetricsError(f"parameter `{p.name}` must lie in {bounds}; got {value}")
     return value
 

@@ -119,7 +119,7 @@ def gather(
 THRESHOLDS = (
     "ref_start",
     "ref_end",
-    "z",
+    "fdr",
     "min_rows",
     "js_threshold",
     "psi_threshold",

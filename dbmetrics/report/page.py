@@ -221,9 +221,10 @@ def _flagged(data: ReportData) -> str:
 def _limits(data: ReportData) -> str:
     t = data.thresholds
     return (
-        f"prediction_js > {t.get('js_threshold')}, confidence_psi > {t.get('psi_threshold')}, "
-        f"label_js > {t.get('label_js_threshold')} (each also above its chance level), "
-        f"|cross_entropy_z| > {t.get('z')}, |ece_delta| > {t.get('ece_threshold')}; "
+        f"q-value (Benjamini-Hochberg, over every test of the drift table) at most "
+        f"{t.get('fdr')}, and prediction_js > {t.get('js_threshold')}, confidence_psi > "
+        f"{t.get('psi_threshold')}, label_js > {t.get('label_js_threshold')}, |ece_delta| > "
+        f"{t.get('ece_threshold')} (the cross-entropy test: the q-value alone); "
         f"cells under {t.get('min_rows')} rows are never flagged"
     )
 
