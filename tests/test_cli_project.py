@@ -177,3 +177,41 @@ def test_run_query_reads_a_project_file(tmp_path, monkeypatch):
     assert got == [{"grain": "day", "note": "given"}]
     got = run_query(con, "echo", {}, project=project.load(path)).to_pylist()
     assert got == [{"grain": "day", "note": "from file"}]
+
+
+def test_partials_update_takes_the_column_roles_from_the_project_params(tmp_path, monkeypatch):
+    """A store's column roles are the project's [params] under --set, over the defaults
+    declared in queries/role_params.py; a [queries.NAME] table is one query's only."""
+    import datetime as dt
+    import json
+
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+    from click.testing import CliRunner
+
+    from dbmetrics.cli.main import cli
+
+    monkeypatch.chdir(tmp_path)
+    for name in ("DBMETRICS_PROJECT", "DBMETRICS_DATABASE", "DBMETRICS_QUERY_PATH"):
+        monkeypatch.delenv(name, raising=False)
+    day = dt.datetime(2026, 1, 5)
+    log = pa.table(
+        {
+            "when": [day, day + dt.timedelta(days=1)],
+            "logits": [[0.0, 1.0], [2.0, 0.0]],
+            "label": [1, 0],
+            "model_version": ["v1", "v1"],
+            "region": ["north", "south"],
+        }
+    )
+    pq.write_table(log, tmp_path / "logs.parquet")
+    (tmp_path / "dbmetrics.toml").write_text(
+        '[params]\nlogs = "logs.parquet"\ntime_col = "when"\nsegment_cols = "region"\n'
+        'grain = "day"\n[queries.rollup]\nbins = 10\n'
+    )
+    result = CliRunner().invoke(
+        cli, ["partials", "update", "--store", "store", "--set", "time_col=when"]
+    )
+    assert result.exit_code == 0, result.output
+    roles = json.loads((tmp_path / "store" / "manifest.json").read_text())["column_roles"]
+    assert (roles["segment_cols"], roles["time_col"], roles["bins"]) == ("region", "when", "15")

@@ -1,4 +1,4 @@
-"""The check's parameters: the saved queries' column roles (declared as in rollup) plus a few of
+"""The check's parameters: the saved queries' column roles (role_params.py) plus a few of
 its own, checked with the saved queries' own code (defaults, values, sources, column roles)."""
 
 from dataclasses import dataclass

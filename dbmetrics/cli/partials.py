@@ -87,13 +87,14 @@ def update_command(ctx, store, settings, relabel_days, since, full, drop_vanishe
           --set labels=demo_parquet/labels/labels.parquet --set id_col=prediction_id
       dbmetrics partials update --store metrics_store
     """
-    from dbmetrics import partials, queries
+    from dbmetrics import partials
     from dbmetrics.partials.update import KNOWN
+    from dbmetrics.queries.header import column_role_params
 
     session = ctx.obj
-    declared = [p.name for p in queries.get_query("rollup").params]
+    declared = [p.name for p in column_role_params()]  # as the project's [params] give them
     given = parse_settings(settings)
-    merged = merge("rollup", declared, session.project, given)
+    merged = merge("partials", declared, session.project, given)
     params = {k: v for k, v in merged.items() if k in KNOWN or k in given}
     day = since.date() if isinstance(since, dt.datetime) else None
     job = partials.Update(

@@ -22,8 +22,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.queries.catalog import get_query
-from dbmetrics.queries.header import COLUMN_MAP
+from dbmetrics.queries.header import COLUMN_MAP, column_roles_info
 from dbmetrics.queries.roles import column_roles
 from dbmetrics.queries.schema import first_line, open_source
 from dbmetrics.queries.state_sql import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS
@@ -54,18 +53,19 @@ STAGED = "dbmetrics_partials_day"
 
 
 def column_roles_texts(params: dict, recorded: dict | None) -> tuple:
-    """The column-role parameters: given ones over the store's recorded ones over the saved
-    queries' defaults; a given one that differs from the recorded one is refused."""
+    """(texts, the column-role parameters as a QueryInfo): given ones over the store's
+    recorded ones over their defaults (role_params.py); a given one that differs from the
+    recorded one is refused."""
     unknown = sorted(set(params) - set(KNOWN))
     if unknown:
         raise DbmetricsError(
             f"partials: no parameter {', '.join(unknown)}; a store takes the "
             f"column roles only: {', '.join(KNOWN)}"
         )
-    rollup = get_query("rollup")
+    roles = column_roles_info("partials update", "A store's column roles")
     given = {k: v for k, v in params.items() if v is not None}
     timezone = str(given.pop("timezone", "") or "").strip() or None
-    texts = with_defaults(rollup, given)
+    texts = with_defaults(roles, given)
     texts["timezone"] = timezone or "UTC"
     if recorded is not None:
         for key in RECORDED:
@@ -83,7 +83,7 @@ def column_roles_texts(params: dict, recorded: dict | None) -> tuple:
             texts["timezone"] = recorded["timezone"]
     if texts["logs"] is None:
         raise DbmetricsError("partials: needs parameter `logs` (the prediction log to summarise)")
-    return texts, rollup
+    return texts, roles
 
 
 class Update:
@@ -133,7 +133,7 @@ class Update:
         params = dict(self.params)
         if self.manifest and params.get("logs") is None:
             params["logs"] = self.manifest["logs"]  # the log this store was last updated from
-        texts, rollup = column_roles_texts(params, recorded)
+        texts, declared = column_roles_texts(params, recorded)
         self.texts = texts
         with session_time_zone(con, texts["timezone"]):
             sources = {
@@ -149,7 +149,7 @@ class Update:
             if self.recompute:
                 zoned = roles.zoned
                 narrowed, bound = only_days(roles, [current[k] for k in self.recompute], zoned)
-                values = {"bins": convert(rollup.param("bins"), texts["bins"]), **bound}
+                values = {"bins": convert(declared.param("bins"), texts["bins"]), **bound}
                 values.update(roles.values)  # $classes, $timezone, $unlabelled_value
                 if "labels" in sources:
                     values.update(sources["labels"].bound)

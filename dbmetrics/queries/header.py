@@ -180,6 +180,14 @@ def column_role_params() -> tuple:
     return tuple(parse_param(text, Path(role_params.__file__)) for text in role_params.HEADER)
 
 
+def column_roles_info(name: str, summary: str) -> QueryInfo:
+    """The column-role parameters alone, described like a saved query's (for `with_defaults`
+    and `convert`): what a command that takes only the column roles reads."""
+    return QueryInfo(
+        name, summary, Path(role_params.__file__), column_role_params(), "", "built-in"
+    )
+
+
 def with_included(params: list) -> list:
     """`params` with each include marker (None) replaced by the column-role parameters the
     query does not declare itself."""

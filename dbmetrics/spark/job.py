@@ -143,7 +143,7 @@ class SparkUpdate(Update):
                 else:
                     continue
             frames[name], named[name] = read_source(spark, name, value)
-        texts, rollup = column_roles_texts({**params, **named}, recorded)
+        texts, declared = column_roles_texts({**params, **named}, recorded)
         self.texts = texts
         schemas = {name: arrow_schema(df, name) for name, df in frames.items()}
         roles, sources = checked_roles(texts, schemas)
@@ -176,7 +176,7 @@ class SparkUpdate(Update):
         if self.recompute:
             days = tuple(self.current[k] for k in self.recompute)
             zoned = sources["logs"].type_of(roles.time).startswith("TIMESTAMP WITH")
-            values = {"bins": convert(rollup.param("bins"), texts["bins"]), **roles.values}
+            values = {"bins": convert(declared.param("bins"), texts["bins"]), **roles.values}
             output = union_schema(schemas["logs"], keys)
             spec = dataclasses.replace(spec, values=values, days=days, zoned=zoned, output=output)
             self.frames = self.spark_states(near(rows, roles.time, days), spec, keys)
