@@ -158,11 +158,13 @@ CREATE OR REPLACE MACRO cross_entropy(logits, label) AS
     dbmetrics_cross_entropy(logits, dbmetrics_label('cross_entropy', len(logits), label));
 
 -- -sum_j t_j log p_j given a log-probability list and a target distribution (0 where t_j = 0).
+-- logp is bound once: a macro argument is an expression, computed again wherever it is used.
 CREATE OR REPLACE MACRO dbmetrics_soft_loss(logp, t) AS
-    CASE WHEN logp IS NOT NULL THEN
-        0.0 - list_sum(list_transform(t, lambda sl_t, sl_i:
-            CASE WHEN sl_t = 0.0 THEN 0.0 ELSE sl_t * logp[sl_i] END))
-    END;
+    list_transform([logp], lambda sl_l:
+        CASE WHEN sl_l IS NOT NULL THEN
+            0.0 - list_sum(list_transform(t, lambda sl_t, sl_i:
+                CASE WHEN sl_t = 0.0 THEN 0.0 ELSE sl_t * sl_l[sl_i] END))
+        END)[1];
 
 CREATE OR REPLACE MACRO dbmetrics_cross_entropy_probs(probs, label) AS
     list_transform([dbmetrics_as_distribution(probs)], lambda cep_p:
