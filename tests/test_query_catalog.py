@@ -73,6 +73,7 @@ def test_built_in_queries_and_their_header():
         "class_calibration",
         "binary",
         "labels",
+        "version_gap",
     }
     grain = queries["rollup"].param("grain")
     assert (grain.type, grain.choices, grain.default, grain.required) == (
@@ -121,7 +122,7 @@ def test_unknown_query_lists_the_names():
         DbmetricsError,
         match="no saved query `rolup`; queries are: "
         "binary, calibration, class_calibration, class_metrics, confusion, drift, labels, "
-        "recalibration, rollup, segments",
+        "recalibration, rollup, segments, version_gap",
     ):
         get_query("rolup")
 
@@ -208,6 +209,7 @@ def test_a_query_can_include_another(tmp_path, logs):
         "class_metrics",
         "confusion",
         "class_calibration",
+        "version_gap",
     ],
 )
 def test_header_example_runs_on_the_demo_logs(query, monkeypatch):

@@ -48,6 +48,8 @@ def base(name, logs):
     params = {"logs": logs}
     if name == "segments":
         params.update(segment_cols="region", business=logs.replace("logs.parquet", "biz.csv"))
+    if name == "version_gap":  # two versions to compare
+        params.update(version_col="region")
     return params
 
 
@@ -69,8 +71,11 @@ def test_hostile_text_is_refused_or_bound(con, logs, query, param, text):
         assert sql == render_query(con, query, {**params, param: "plain"})[0]
         try:
             run_query(con, query, params)
-        except DbmetricsError as exc:  # class names are counted against K only on the data
-            assert param == "classes" and str(exc).startswith("classes: ")
+        except DbmetricsError as exc:  # class names are counted against K only on the data,
+            # and versions looked up there
+            assert (param == "classes" and str(exc).startswith("classes: ")) or (
+                param.startswith("version_") and f"{param}: no rows of version `" in str(exc)
+            )
     assert con.sql("SELECT x FROM canary").fetchall() == [(42,)]
 
 

@@ -43,9 +43,10 @@ FRAGMENTS = (
     "confusion_state",
     "binary_state",
     "predictions",
+    "rows_by_id",
     "segments",
     "segment_match",
-)  # see state_sql.fragments
+)  # see state_sql.fragments (rows_by_id: pairs.py)
 
 PARAM_NAME = re.compile(r"param\s+([a-z_][a-z0-9_]*)\s*\(")
 MEANING = re.compile(r"\s*:\s*(.+)")

@@ -9,6 +9,8 @@ so it costs nothing and works the same on logs and on a partials store:
   row at all (an empty result);
 - drift: a reference window without rows; every period inside the reference; every cell
   outside the reference below min_rows (nothing can ever be flagged).
+- version_gap: no cell with evaluated rows of both versions (every difference NULL), and a
+  partials store, on which nothing can be paired.
 
 The check reports the log-wide ones as issues with the same words (`no_usable_scores`,
 `labels_match_no_prediction`).
@@ -70,6 +72,29 @@ def result_notes(name: str, texts: dict, table: pa.Table) -> list:
         notes.append(empty_evaluation(name, texts))
     if name == "drift" or {"in_reference", "ref_scored_rows"} <= cols:
         notes += drift_notes(texts, table)
+    if {"metric", "form", "version_a", "version_b"} <= cols:
+        notes += comparison_notes(name, texts, table)
+    return notes
+
+
+def comparison_notes(name: str, texts: dict, table: pa.Table) -> list:
+    """version_gap: nothing compared, and the unpaired-only partials store."""
+    notes = []
+    if texts.get("partials"):
+        notes.append(
+            f"{name}: a partials store keeps sums, not rows, so no prediction is paired by "
+            "id and every cell takes the unpaired (Welch) form; run it on the logs with "
+            "id_col to pair the predictions both versions scored (shadow or canary)"
+        )
+    if table.num_rows and table.column("form").null_count == table.num_rows:
+        keys = table.column_names[: table.column_names.index("metric")]  # period, segments
+        cells = table.select(keys).group_by(keys).aggregate([]).num_rows
+        a, b = table.column("version_a")[0].as_py(), table.column("version_b")[0].as_py()
+        notes.append(
+            f"{name}: none of the {cells} period x segment cells has evaluated rows of both "
+            f"version_a `{a}` and version_b `{b}`, so every difference is NULL: choose "
+            "versions that ran at the same time (version_a, version_b) or a longer grain"
+        )
     return notes
 
 

@@ -11,6 +11,7 @@ import duckdb
 
 from dbmetrics.errors import DbmetricsError
 
+from . import pairs
 from .catalog import get_query
 from .engine import CLASS_KINDS, engine_pays, materialized_states, sampled_classes
 from .header import COLUMN_MAP, PLACEHOLDER, QueryInfo, bound_values
@@ -126,6 +127,7 @@ def render_info(
         store_sql, store_values = store_fragments(texts, params)
         filled.update(store_sql)
         values.update(store_values)
+        filled["rows_by_id"] = pairs.no_rows(filled)
         filled.update(
             {
                 p.name: checked_names(p, texts[p.name])
@@ -157,6 +159,9 @@ def render_info(
             # the score histogram exists for two-class logs only (judged on the first rows)
             filled["binary_state"] = empty_binary_state(roles)
             uses.discard("binary_state")
+        if "rows_by_id" in uses:
+            ids = texts.get("id_col") and sources["logs"].column(texts["id_col"], "id_col")
+            filled["rows_by_id"] = pairs.rows_by_id(roles, ids)
         kinds = tuple(k for k in CLASS_KINDS if k in uses)
         if (
             materialize

@@ -86,6 +86,7 @@ INTERNAL = (
     "label_ok",
     "loss",
     "label_rank",
+    "pair_id",
     *{c for _, (keys, sums) in EXTRA_STATES.items() for c in keys + sums},
 )
 
@@ -95,8 +96,9 @@ def nested(sql: str) -> str:
     return "(\n" + textwrap.indent(sql, "    ") + "\n)"
 
 
-def predictions(roles: ColumnRoles, window: bool = False) -> str:
-    """One row per prediction: day, keys, scores, label.
+def predictions(roles: ColumnRoles, window: bool = False, extra: dict | None = None) -> str:
+    """One row per prediction: day, keys, scores, label (and `extra`: alias -> expression
+    over the logs' columns, e.g. the prediction id).
 
     window: keep only $window_start <= time < $window_end (bound TIMESTAMPs), a filter
     DuckDB pushes into the Parquet scan, so row groups outside it are skipped.
@@ -129,9 +131,10 @@ def predictions(roles: ColumnRoles, window: bool = False) -> str:
             f"\nWHERE {time} >= {day_start(roles, '$window_start')}"
             f" AND {time} < {day_start(roles, '$window_end')}"
         )
+    carried = "".join(f",\n       {expr} AS {alias}" for alias, expr in (extra or {}).items())
     return (
         f"SELECT {day(roles, 'logs.' + quote(roles.time))} AS day, {keys},\n"
-        f"       {scores} AS scores,\n       {label} AS label\n"
+        f"       {scores} AS scores,\n       {label} AS label{carried}\n"
         f"FROM {roles.logs.sql} AS logs{join}{where}"
     )
 
