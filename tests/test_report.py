@@ -102,7 +102,8 @@ def test_the_report_is_one_well_formed_page_with_every_section(report):
     text = " ".join(" ".join(parsed.text).split())
     assert CAUTIONS in text
     assert "prediction_js 0.0" in text and "alpine" in text  # the planted shift, with reasons
-    assert "v1 and v2 side by side over the periods where both ran" in text
+    assert "v2 against v1 in the latest periods where both ran" in text
+    assert "cross entropy" in text and "unpaired" in text
 
 
 def test_the_report_fetches_nothing(report):

@@ -15,7 +15,7 @@ from dbmetrics.atomic import write_output
 from dbmetrics.cli.params import merge, parse_settings
 from dbmetrics.errors import DbmetricsError
 
-QUERIES = ("rollup", "drift", "calibration", "labels", "compare")
+QUERIES = ("rollup", "drift", "calibration", "labels", "version_gap")
 
 
 def _html_path(ctx, param, value: str) -> str:
@@ -93,12 +93,7 @@ def command(session, settings, start, end, latest, segment, measure, title, outp
     cli_params = parse_settings(settings)
     per_query = {}
     for name in QUERIES:
-        try:
-            info = queries.get_query(name, query_dirs=dirs)
-        except DbmetricsError:
-            if name == "compare":  # optional: included when that saved query exists
-                continue
-            raise
+        info = queries.get_query(name, query_dirs=dirs)
         declared = [p.name for p in info.params]
         per_query[name] = merge(
             name, declared, session.project, {k: v for k, v in cli_params.items() if k in declared}

@@ -5,8 +5,9 @@
     build_report(con, params, ...) -> str      both in one call
 
 The page holds, for a period range: the latest periods of each version against the drift
-reference, the flagged cells with their reasons, the versions compared (the ``compare`` saved
-query when it exists, else the rollup of two versions side by side) with their reliability
+reference, the flagged cells with their reasons, the two most recent versions compared (the
+``version_gap`` saved query for the latest periods where both ran, else the rollup of two
+versions side by side) with their reliability
 diagrams, cross-entropy and label coverage over time, a period x segment heatmap of the main
 drift measure with flagged cells marked, and the cautions. Drawing needs matplotlib (the
 ``plot`` extra); importing this package does not import it.

@@ -18,8 +18,8 @@ class ReportData:
     """Everything the page shows; tables are the saved queries' results, rows in the range.
 
     rollup, drift, calibration: per period x version. cells: drift per period x version x
-    ``segment`` (the drift table again when there is no segment). compare: the ``compare``
-    saved query's result when that query exists and runs, else None. labels: the ``labels``
+    ``segment`` (the drift table again when there is no segment). gap: the ``version_gap``
+    query per period when two versions ran in the range and it runs, else None. labels: the ``labels``
     query per period x version (None when it cannot run, e.g. no label time column). latest: the last ``latest``
     periods of the range, newest last.
     """
@@ -36,7 +36,7 @@ class ReportData:
     drift: pa.Table
     cells: pa.Table
     calibration: pa.Table
-    compare: pa.Table | None
+    gap: pa.Table | None
     labels: pa.Table | None
     logs: str
     thresholds: dict
@@ -54,7 +54,7 @@ def gather(
     title: str | None = None,
     query_dirs=None,
 ) -> ReportData:
-    """Run rollup, drift and calibration (and ``compare`` when it exists) on ``params``.
+    """Run rollup, drift and calibration (and version_gap when two versions ran) on ``params``.
 
     ``query_params`` maps a query name to parameters that win over ``params`` for it (the
     project file's ``[queries.NAME]``, the command line's ``--set``). Periods whose first day
@@ -92,7 +92,8 @@ def gather(
     drift = run("drift", segment_cols="")
     cells = run("drift", segment_cols=segment) if segment else drift
     calibration = run("calibration", segment_cols="")
-    compare = _optional(lambda: run("compare")) if _exists("compare", query_dirs) else None
+    two = len(set(rollup[str(resolved("rollup").get("version_col"))].to_pylist())) > 1
+    gap = _optional(lambda: run("version_gap", segment_cols="")) if two else None
     labels = _optional(lambda: run("labels", segment_cols=""))
     settings = resolved("drift")
     periods = sorted(set(rollup["period"].to_pylist()))
@@ -109,7 +110,7 @@ def gather(
         drift=drift,
         cells=cells,
         calibration=calibration,
-        compare=compare,
+        gap=gap,
         labels=labels,
         logs=str(settings.get("partials") or settings.get("logs") or ""),
         thresholds={k: settings.get(k) for k in THRESHOLDS},
@@ -134,16 +135,6 @@ def _optional(call):
         return call()
     except DbmetricsError:
         return None
-
-
-def _exists(name: str, query_dirs) -> bool:
-    from dbmetrics import queries
-
-    try:
-        queries.get_query(name, query_dirs=query_dirs)
-    except DbmetricsError:
-        return False
-    return True
 
 
 def _in_range(table: pa.Table, start: dt.date | None, end: dt.date | None) -> pa.Table:

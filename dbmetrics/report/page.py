@@ -232,14 +232,7 @@ def _limits(data: ReportData) -> str:
 def _versions(data: ReportData) -> str:
     from dbmetrics import plots
 
-    parts = ['<h2 id="versions">Versions compared</h2>']
-    if data.compare is not None:
-        parts.append("<p>The <code>compare</code> query's result for the range.</p>")
-        parts.append(
-            _table(data.compare.column_names, [_tr(r.values()) for r in _rows(data.compare)])
-        )
-    else:
-        parts.append(_side_by_side(data))
+    parts = ['<h2 id="versions">Versions compared</h2>', _gap(data) or _side_by_side(data)]
     version = data.version_col
     calibration = data.calibration
     if calibration.num_rows:
@@ -272,6 +265,42 @@ def _versions(data: ReportData) -> str:
         )
     )
     return "\n".join(parts)
+
+
+def _gap(data: ReportData) -> str | None:
+    """version_gap for the latest periods where both versions ran; None when there are none."""
+    rows = _rows(data.gap, lambda r: r["form"] is not None) if data.gap is not None else []
+    if not rows:
+        return None
+    periods = sorted({r["period"] for r in rows})[-len(data.latest) :]
+    a, b = rows[0]["version_a"], rows[0]["version_b"]
+    head = ["period", "metric", a, b, f"{b} - {a}", "95% interval", "p-value", "form"]
+    body = [
+        _tr(
+            [
+                r["period"],
+                r["metric"].replace("_", " "),
+                r["value_a"],
+                r["value_b"],
+                r["difference"],
+                f"{_text(r['ci_low'])} to {_text(r['ci_high'])}"
+                if r["ci_low"] is not None
+                else None,
+                r["p_value"],
+                r["form"],
+            ]
+        )
+        for r in rows
+        if r["period"] in periods
+    ]
+    return (
+        f"<p>{_e(str(b))} against {_e(str(a))} in the latest periods where both ran "
+        "(<code>version_gap</code>): each metric of both, the difference with its 95% interval "
+        "and the p-value of no difference. <em>paired</em>: both versions scored the same "
+        "predictions (matched by id), and every number is over those pairs; <em>unpaired</em>: "
+        "each version over its own rows. Cross-entropy in nats; lower is better except for "
+        "accuracy.</p>" + _table(head, body)
+    )
 
 
 def _side_by_side(data: ReportData) -> str:
