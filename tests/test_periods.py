@@ -16,6 +16,8 @@ import dbmetrics
 from dbmetrics.cli.main import cli
 from dbmetrics.errors import DbmetricsError
 from dbmetrics.queries import periods, run_query
+from dbmetrics.queries.periods import keep
+from dbmetrics.queries.render import rendered
 
 ROOT = Path(__file__).resolve().parents[1]
 PROJECT = ROOT / "demo_parquet" / "dbmetrics.toml"
@@ -96,17 +98,90 @@ def test_periods_are_the_days_of_the_timezone(con, tmp_path):
     assert tokyo["period"].to_pylist() == [D(2026, 1, 12)]
 
 
+@pytest.fixture(scope="module")
+def zoned(tmp_path_factory):
+    """Ten weeks of predictions at any hour (TIMESTAMPTZ), so days cut in a time zone move."""
+    rng = np.random.default_rng(8)
+    n = 4000
+    start = dt.datetime(2026, 1, 5, tzinfo=dt.timezone.utc)
+    hours = np.sort(rng.integers(0, 70 * 24, n))
+    path = tmp_path_factory.mktemp("zoned") / "logs.parquet"
+    pq.write_table(
+        pa.table(
+            {
+                "ts": pa.array(
+                    [start + dt.timedelta(hours=int(h), minutes=30) for h in hours],
+                    pa.timestamp("us", "UTC"),
+                ),
+                "model_version": rng.choice(["v1", "v2"], n),
+                "logits": pa.array(list(rng.normal(size=(n, 3))), pa.list_(pa.float64())),
+                "label": rng.integers(0, 3, n),
+            }
+        ),
+        path,
+    )
+    return str(path)
+
+
+def same_rows(mine: list, theirs: list) -> None:
+    """Equal rows; floats to the last digits (sums in another order)."""
+    assert [r.keys() for r in mine] == [r.keys() for r in theirs]
+    for a, b in zip(mine, theirs, strict=True):
+        for key, value in a.items():
+            if isinstance(value, float):
+                assert value == pytest.approx(b[key], rel=1e-9, nan_ok=True), key
+            else:
+                assert value == b[key], key
+
+
+@pytest.mark.parametrize("zone", ["America/Los_Angeles", "Asia/Tokyo"])
+@pytest.mark.parametrize(
+    "grain, chosen",
+    [
+        ("week", {"since": "2026-01-21", "until": "2026-02-09"}),
+        ("week", {"until": "2026-02-15", "last": 2}),
+        ("day", {"since": "2026-02-01", "until": "2026-02-03"}),
+        ("month", {"since": "2026-02-01", "last": 1}),
+    ],
+)
+def test_a_scan_cut_to_the_periods_gives_the_periods_of_the_whole_scan(
+    con, zoned, zone, grain, chosen
+):
+    params = {"logs": zoned, "timezone": zone, "grain": grain, "segment_cols": ""}
+    cut = periods(**chosen)
+    whole = keep(run_query(con, "rollup", params), cut, grain, "rollup").to_pylist()
+    assert whole, "the chosen periods have rows"
+    same_rows(run_query(con, "rollup", params, periods=cut).to_pylist(), whole)
+
+
+def test_the_scan_is_cut_only_for_queries_whose_periods_are_independent(con, logs, zoned):
+    chosen = periods(since="2026-01-14", until="2026-02-04", last=2)
+    naive = rendered(con, "rollup", {"logs": logs}, periods=chosen).bound
+    # weeks of 2026-01-26 and 2026-02-02: from the first's Monday to the Monday after the last
+    assert (naive["period_scan_first"], naive["period_scan_after"]) == (
+        D(2026, 1, 26),
+        D(2026, 2, 9),
+    )
+    aware = rendered(con, "calibration", {"logs": zoned}, periods=chosen).bound
+    # a TIMESTAMPTZ is compared in the session's zone: a day more on each side
+    assert (aware["period_scan_first"], aware["period_scan_after"]) == (
+        D(2026, 1, 25),
+        D(2026, 2, 10),
+    )
+    assert "period_scan_first" not in rendered(con, "drift", {"logs": logs}, periods=chosen).bound
+    assert "period_scan_first" not in rendered(con, "rollup", {"logs": logs}).bound
+    # --last alone needs the data's latest period: nothing is cut
+    assert (
+        "period_scan_first"
+        not in rendered(con, "rollup", {"logs": logs}, periods=periods(last=1)).bound
+    )
+
+
 def test_drift_reference_window_is_not_cut_by_since(con, logs):
     params = {"logs": logs, "segment_cols": "region", "min_rows": "20"}
     whole = run_query(con, "drift", params).to_pylist()
     late = run_query(con, "drift", params, periods=periods(since="2026-02-09")).to_pylist()
-    kept = [r for r in whole if r["period"] >= D(2026, 2, 9)]
-    assert [r.keys() for r in late] == [r.keys() for r in kept]
-    for mine, theirs in zip(late, kept, strict=True):  # sums run in parallel: last-digit noise
-        for key, value in mine.items():
-            assert value == (
-                pytest.approx(theirs[key], rel=1e-9) if isinstance(value, float) else theirs[key]
-            )
+    same_rows(late, [r for r in whole if r["period"] >= D(2026, 2, 9)])
     assert all(r["ref_scored_rows"] > 0 for r in late)
 
 

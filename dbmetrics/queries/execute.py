@@ -31,7 +31,9 @@ def run_query(
     its query_dirs are searched too and its [params] / [queries.NAME] fill in what `params`
     does not give (dbmetrics.project.merge).
     periods: keep only these periods of the result (`periods.periods(since, until, last)`;
-    see periods.py); a result without a `period` column is then an error.
+    see periods.py); a result without a `period` column is then an error. A query whose
+    periods are independent of each other (periods.PER_PERIOD) reads only the logs' rows
+    that can fall in them.
 
     STATE is computed first by the numpy engine and read from a registered table, which
     is dropped again afterwards. Scores that do not look like `scores_kind` says give a
@@ -44,7 +46,9 @@ def run_query(
         declared = [p.name for p in get_query(name, query_dirs).params]
         params = merge(name, declared, settings, params)
     try:
-        r = rendered(con, name, params, query_dirs, materialize=True, inspect=check_scores)
+        r = rendered(
+            con, name, params, query_dirs, materialize=True, inspect=check_scores, periods=periods
+        )
         table = con.sql(r.sql, params=r.bound).to_arrow_table()
     except duckdb.Error as exc:
         raise DbmetricsError(f"query `{name}` failed: {explain(con, params, exc)}") from exc

@@ -7,21 +7,43 @@ N calendar periods that end with the period holding ``until`` (without ``until``
 latest period of the result); a period without rows in that span is simply absent, so a
 scheduled run over a quiet week shows nothing of older weeks.
 
-The filter cuts the result, after the query: the drift reference window, which may lie
-before ``since``, is untouched, and every row is computed as without the filter.
+The filter cuts the result, after the query, so every row kept is computed as without it:
+the drift reference window, which may lie before ``since``, is untouched. Where that saves
+work, the scan is cut too: a query in `PER_PERIOD` (each period's rows depend on that
+period's days alone) reads only the logs' rows from the first kept period on and before the
+period after the last (`scan_window`, `within`), when those ends are known without reading the
+data (``last`` without ``until`` leaves the upper end to the result).
 """
 
 from __future__ import annotations
 
 import datetime as dt
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import pyarrow as pa
 import pyarrow.compute as pc
 
 from dbmetrics.errors import DbmetricsError
 
+from .roles import ColumnRoles
+from .schema import quote
+
 GRAINS = ("day", "week", "month")
+# Not drift (its reference window, and q-values over the whole table), nor any query of a
+# user's, whose periods may depend on each other.
+PER_PERIOD = frozenset(
+    (
+        "rollup",
+        "calibration",
+        "recalibration",
+        "segments",
+        "class_metrics",
+        "confusion",
+        "class_calibration",
+        "binary",
+        "labels",
+    )
+)
 
 
 @dataclass(frozen=True)
@@ -86,6 +108,47 @@ def keep(table: pa.Table, chosen: Periods, grain: str | None, query: str) -> pa.
     return table.filter(pc.fill_null(mask, False))
 
 
+def scan_window(query: str, chosen: Periods | None, grain: str | None) -> tuple | None:
+    """(first day, day after the last) whose rows can fall in the kept periods (either None
+    when open), for a query in PER_PERIOD; None when nothing can be cut.
+
+    >>> scan_window("rollup", periods("2026-03-04", "2026-03-10", 4), "week")
+    (datetime.date(2026, 3, 9), datetime.date(2026, 3, 16))
+    """
+    if chosen is None or query not in PER_PERIOD or grain not in GRAINS:
+        return None
+    first = after = None
+    if chosen.since is not None:
+        first = start_of(chosen.since, grain)
+        first = first if first == chosen.since else back(first, -1, grain)
+    if chosen.until is not None:
+        last = start_of(chosen.until, grain)
+        after = back(last, -1, grain)
+        if chosen.last is not None:
+            earliest = back(last, chosen.last - 1, grain)
+            first = earliest if first is None else max(first, earliest)
+    return None if first is None and after is None else (first, after)
+
+
+def within(roles: ColumnRoles, first: dt.date | None, after: dt.date | None) -> ColumnRoles:
+    """`roles` whose logs hold only the rows of days first..after (after excluded; either end
+    open when None), a time range DuckDB pushes into a Parquet scan. A TIMESTAMPTZ is
+    compared in the session's time zone, not `timezone`: the range is widened by a day on
+    each side, and the rows of those days fall in periods the result leaves out."""
+    pad = dt.timedelta(days=1 if roles.zoned else 0)
+    t = f"logs.{quote(roles.time)}"
+    tests, bound = [], {}
+    if first is not None:
+        tests.append(f"{t} >= CAST($period_scan_first AS DATE)")
+        bound["period_scan_first"] = first - pad
+    if after is not None:
+        tests.append(f"{t} < CAST($period_scan_after AS DATE)")
+        bound["period_scan_after"] = after + pad
+    sql = f"(SELECT * FROM {roles.logs.sql} AS logs WHERE {' AND '.join(tests)})"
+    logs = replace(roles.logs, sql=sql, bound={**roles.logs.bound, **bound})
+    return replace(roles, logs=logs)
+
+
 def start_of(day: dt.date, grain: str) -> dt.date:
     """The first day of the period holding `day`; weeks start on Monday (DuckDB's
     date_trunc('week'), ISO 8601).
@@ -101,7 +164,8 @@ def start_of(day: dt.date, grain: str) -> dt.date:
 
 
 def back(first: dt.date, steps: int, grain: str) -> dt.date:
-    """The first day of the period `steps` periods before the one starting on `first`.
+    """The first day of the period `steps` periods before the one starting on `first` (after
+    it for negative `steps`).
 
     >>> back(dt.date(2026, 3, 1), 3, "month")
     datetime.date(2025, 12, 1)

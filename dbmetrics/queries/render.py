@@ -15,6 +15,7 @@ from . import pairs
 from .catalog import get_query
 from .engine import CLASS_KINDS, engine_pays, materialized_states, sampled_classes
 from .header import COLUMN_MAP, PLACEHOLDER, QueryInfo, bound_values
+from .periods import Periods, scan_window, within
 from .role_params import REQUIRED_ROLES
 from .roles import ColumnRoles, column_roles, time_zone
 from .schema import open_source, quote
@@ -64,11 +65,14 @@ def rendered(
     materialize: bool = False,
     inspect=None,
     sql_state: bool = False,
+    periods: Periods | None = None,
 ) -> Rendered:
     """The query rendered with `params`, with what a caller needs to judge its result.
 
     inspect(con, roles): called once the column roles are checked against the logs, before
-    any state is computed (execute.py looks at a sample of the scores there)."""
+    any state is computed (execute.py looks at a sample of the scores there).
+    periods: the periods the caller keeps; a query whose periods are independent reads only
+    the logs' rows that can fall in them (periods.scan_window)."""
     info = get_query(name, query_dirs)
     included = list(included_queries(info, query_dirs).values())
     for inner in included:
@@ -79,7 +83,14 @@ def rendered(
                 f"{', '.join(missing)} it does not declare"
             )
     return render_info(
-        con, info, params, {f"query:{q.name}": q for q in included}, materialize, inspect, sql_state
+        con,
+        info,
+        params,
+        {f"query:{q.name}": q for q in included},
+        materialize,
+        inspect,
+        sql_state,
+        periods,
     )
 
 
@@ -106,9 +117,11 @@ def render_info(
     materialize: bool = False,
     inspect=None,
     sql_state: bool = False,
+    periods: Periods | None = None,
 ) -> Rendered:
     """materialize: compute STATE now with the numpy engine (engine.py) and read it from a
-    registered table; otherwise {{state}} is the equivalent SQL with one UDF call per row."""
+    registered table; otherwise {{state}} is the equivalent SQL with one UDF call per row.
+    periods: see `rendered`."""
     texts = with_defaults(info, params)
     values = {
         p.name: convert(p, texts[p.name])
@@ -149,6 +162,10 @@ def render_info(
         )
         texts["timezone"] = time_zone(con, texts.get("timezone"))
         roles = column_roles(texts, sources, reserved)
+        window = scan_window(info.name, periods, texts.get("grain"))
+        if window is not None:
+            roles = within(roles, *window)
+            sources["logs"] = roles.logs
         values.update(roles.values)
         if inspect is not None:
             inspect(con, roles)
