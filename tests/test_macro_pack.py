@@ -50,7 +50,7 @@ def test_the_pack_checks_probabilities_with_the_kernels_tolerance():
 
     text = macros.pack_text()
     assert text.count(f"abs(ad_t - 1.0) <= {SUM_TOLERANCE}") == 1
-    assert text.count(f"abs(ps_t - 1.0) > {SUM_TOLERANCE}") == 1
+    assert text.count(f"abs(ps_c.t - 1.0) > {SUM_TOLERANCE}") == 1
     assert "1e-3" not in text.replace("1e-3 of 1", "")
 
 
