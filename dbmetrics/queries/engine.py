@@ -15,13 +15,15 @@ import pyarrow.compute as pc
 
 from dbmetrics.arrow_lists import integer_column, score_matrix
 from dbmetrics.binary_scores import is_binary
-from dbmetrics.kernels import row_stats
+from dbmetrics.kernels import row_stats, state_jit
 from dbmetrics.kernels.distributions import as_distribution
 from dbmetrics.kernels.softmax import softmax
 from dbmetrics.udf_adapters import LOGITS_PAD, PROBS_PAD, ROW_STATS_TYPE, row_stats_struct
 
 from .class_sums import EXTRA_STATES, batch_sums
 from .header import bound_values
+from .jit_route import BATCH_ROWS as JIT_BATCH_ROWS
+from .jit_route import jit_state
 from .roles import KINDS, ColumnRoles
 from .schema import quote
 from .state_sql import CLASS_STATE_COLUMNS, class_state, extra_state, nested, predictions, state
@@ -164,14 +166,15 @@ def partial_states(
     UDF route over the same SQL."""
     kinds = class_kinds(classes)
     source_sql = predictions(roles, window)
+    batch_rows = BATCH_ROWS if kinds or not state_jit.available() else JIT_BATCH_ROWS
     reader = con.sql(source_sql, params=bound_values(source_sql, values)).to_arrow_reader(
-        BATCH_ROWS
+        batch_rows
     )
     try:
         return states_of_rows(con, roles, reader, values, kinds)
-    except (duckdb.Error, pa.ArrowException):
+    except (duckdb.Error, pa.ArrowException, OSError):
         # An error DuckDB raised while producing the rows (a corrupt file, a bad cast) reaches
-        # us wrapped by the Arrow stream, without its context: reading the rows again inside
+        # us wrapped by the Arrow stream (as an OSError when read from Python), without its context: reading the rows again inside
         # DuckDB alone raises it as DuckDB words it. Any other error surfaces unchanged.
         raise_source_error(con, source_sql, values)
         raise
@@ -199,6 +202,8 @@ def states_of_rows(
     the small per-batch class sums. `con` only runs the summing SQL (it may be busy
     streaming `rows`: a cursor of it is used)."""
     kinds = class_kinds(classes)
+    if not kinds and state_jit.available():
+        return {"state": jit_state(con, roles, sliced(rows), rows.schema, int(values["bins"]))}
     kernel_name = KINDS[roles.kind][0]
     kernel, pad = KERNELS[kernel_name]
     distribution = DISTRIBUTIONS[kernel_name]
