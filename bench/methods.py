@@ -12,9 +12,12 @@ independently so that a mismatch points at a bug.
 """
 
 import datetime as dt
+import os
 from dataclasses import dataclass
 
 import numpy as np
+
+from dbmetrics.kernels import state_jit
 
 KEYS = ("period", "model_version", "segment")
 METRICS = (
@@ -156,6 +159,13 @@ def rollup_template(ctx):
         "scores_kind": "logits",
     }
     return lambda: rows_of(run_query(con, "rollup", params))
+
+
+def rollup_numpy_engine(ctx):
+    """The same `rollup` with the compiled route turned off: the numpy engine (K <= 64) or
+    the UDF route, as without the `jit` extra."""
+    os.environ[state_jit.DISABLE_VARIABLE] = "0"
+    return rollup_template(ctx)
 
 
 def rollup_udf_sql(ctx):
@@ -559,7 +569,8 @@ def partials_late_labels(ctx):
 # (setup such as connecting and registering happens outside the timed runs).
 METHODS = {
     "floor": (floor, "floor", "SELECT sum(list_sum(logits)): DuckDB scanning the scores"),
-    "rollup": (rollup_template, "rollup", "dbmetrics.queries.execute_query(con, 'rollup', ...)"),
+    "rollup": (rollup_template, "rollup", "dbmetrics' rollup (compiled route with numba)"),
+    "rollup_numpy": (rollup_numpy_engine, "rollup", "dbmetrics' rollup without numba"),
     "rollup_udf_sql": (rollup_udf_sql, "rollup", "hand SQL over logit_row_stats (no template)"),
     "sql_lambda": (rollup_sql_lambda, "rollup", "hand DuckDB SQL, list lambdas, list_max hoisted"),
     "arrow_numpy": (rollup_arrow_numpy, "rollup", "pyarrow read_table -> numpy blocks (float64)"),

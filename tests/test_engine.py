@@ -6,6 +6,7 @@ render_query shows); a failure inside the engine's stream is reported as DuckDB 
 """
 
 import datetime as dt
+import importlib.util
 
 import numpy as np
 import pyarrow as pa
@@ -144,7 +145,7 @@ def test_the_three_routes_give_one_state(con, tmp_path, same_table):
     assert sum(udf.column("invalid_scores").to_pylist()) > 0
 
 
-def test_the_route_is_chosen_by_kind_and_classes(con, tmp_path):
+def test_the_route_is_chosen_by_kind_classes_and_row_length(con, tmp_path, monkeypatch):
     from dbmetrics.queries.engine import state_route
     from dbmetrics.queries.roles import column_roles
     from dbmetrics.queries.schema import open_source
@@ -166,3 +167,11 @@ def test_the_route_is_chosen_by_kind_and_classes(con, tmp_path):
     assert state_route(con, logits, source.bound, classes=False) == "engine"  # K <= SHORT_K
     assert state_route(con, logits, source.bound, classes=True) == "engine"
     assert state_route(con, probs, source.bound, classes=False) == "engine"  # K <= SHORT_K
+    long_rows = awkward_log(tmp_path / "long.parquet", n=50, ks=(100,))
+    long_source = open_source(con, "logs", long_rows)
+    long_logits = column_roles({**texts, "scores_kind": "logits"}, {"logs": long_source}, set())
+    monkeypatch.setenv("DBMETRICS_JIT", "0")  # the numpy engine: one core, K <= SHORT_K only
+    assert state_route(con, long_logits, long_source.bound, classes=False) == "udf"
+    if importlib.util.find_spec("numba"):
+        monkeypatch.setenv("DBMETRICS_JIT", "1")  # the compiled kernel runs on every core
+        assert state_route(con, long_logits, long_source.bound, classes=False) == "engine"
