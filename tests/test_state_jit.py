@@ -173,6 +173,8 @@ def test_the_sums_agree_with_scipy_on_a_clean_log(con, tmp_path, monkeypatch):
     np.testing.assert_allclose(total["sum_confidence"], p.max(axis=1).sum(), rtol=1e-12)
     brier = ((p - np.eye(k)[y]) ** 2).sum()
     np.testing.assert_allclose(total["sum_brier"], brier, rtol=1e-12)
+    brier_sq = (((p - np.eye(k)[y]) ** 2).sum(axis=1) ** 2).sum()
+    np.testing.assert_allclose(total["sum_brier_sq"], brier_sq, rtol=1e-12)
 
 
 def test_numba_absent_or_turned_off_means_the_numpy_engine(monkeypatch):

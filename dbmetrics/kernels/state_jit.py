@@ -46,6 +46,7 @@ SUMS = (
     "sum_loss",
     "sum_loss_sq",
     "sum_brier",
+    "sum_brier_sq",
     "sum_confidence_evaluated",
 )
 (
@@ -59,7 +60,7 @@ SUMS = (
     _EVALUATED,
     _CORRECT,
 ) = range(len(COUNTS))
-_CONF, _ENTROPY, _LOSS, _LOSS_SQ, _BRIER, _CONF_EVALUATED = range(len(SUMS))
+_CONF, _ENTROPY, _LOSS, _LOSS_SQ, _BRIER, _BRIER_SQ, _CONF_EVALUATED = range(len(SUMS))
 DISABLE_VARIABLE = "DBMETRICS_JIT"  # set to 0 to use the numpy engine even with numba installed
 
 
@@ -125,6 +126,7 @@ def _compiled():
             add(sums, comp, slot, _LOSS, loss)
             add(sums, comp, slot, _LOSS_SQ, loss * loss)
             add(sums, comp, slot, _BRIER, brier)
+            add(sums, comp, slot, _BRIER_SQ, brier * brier)
             add(sums, comp, slot, _CONF_EVALUATED, conf)
 
     @jit
