@@ -136,6 +136,7 @@ def test_cross_entropy_is_entropy_plus_kl_and_never_below_entropy(module_con, pa
             assert ce_logits == pytest.approx(ce, rel=1e-12, abs=1e-14)
 
 
+@pytest.mark.slow
 @EXAMPLES
 @given(rows=logit_rows(), data=st.data())
 def test_prediction_fields_are_consistent(module_con, rows, data):

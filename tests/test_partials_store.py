@@ -55,6 +55,7 @@ def before(table: pa.Table, column: str, cut: dt.datetime) -> pa.Table:
     return table.filter(pc.less(table[column], pa.scalar(cut, pa.timestamp("us"))))
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("inline", [False, True])
 def test_weekly_updates_with_labels_1_to_60_days_late_equal_the_scan(
     same_table, con, demo_tables, tmp_path, inline

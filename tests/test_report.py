@@ -125,6 +125,7 @@ def test_every_picture_is_an_inline_png_with_ink(report):
     assert all(not_blank(p) for p in pictures)
 
 
+@pytest.mark.slow
 @pytest.mark.skipif(
     chromium() is None and not os.environ.get("CI"),
     reason="needs Chromium (apt-get install chromium); CI installs it",
