@@ -1,5 +1,5 @@
 -- name: rollup
--- summary: One row per period x version x segment: volume, label coverage, cross-entropy, accuracy and Brier with 95% intervals, perplexity, ECE, entropy, and the rows that could not be scored, by reason.
+-- summary: One row per period x version x segment: volume, label coverage, cross-entropy, accuracy and Brier with 95% intervals, perplexity, ECE with a debiased l2 calibration error and its interval, entropy, and the rows that could not be scored, by reason.
 -- include: column_roles
 -- param partials (text): a partials store (folder written by `dbmetrics partials update`) to roll up instead of scanning logs; its column roles must cover version_col and segment_cols
 -- output period: first day of the period (date_trunc of grain; Monday for weeks)
@@ -21,7 +21,11 @@
 -- output brier_high: brier + z brier_se
 -- output brier_multiclass: mean multi-class Brier score sum_j (p_j - [j = label])^2 (Brier 1950), range [0, 2]; twice brier in a two-class cell
 -- output brier_multiclass_se: standard error of brier_multiclass, as brier_se
--- output ece: sum over confidence bins of |correct - sum of confidence| / n = sum_b n_b/n |acc_b - conf_b| (top-label, evaluated rows, empty bins contribute 0)
+-- output ece: sum over confidence bins of |correct - sum of confidence| / n = sum_b n_b/n |acc_b - conf_b| (top-label, evaluated rows, empty bins contribute 0); biased upward on small samples (see ece_l2_debiased)
+-- output ece_l2: the plug-in l2 calibration error sqrt(sum_b n_b/n (acc_b - conf_b)^2) over the same bins (at least ece); biased upward on small samples
+-- output ece_l2_debiased: Kumar, Liang and Ma (2019, "Verified uncertainty calibration") debiased l2 calibration error sqrt(max(0, sum_b n_b/n ((acc_b - conf_b)^2 - acc_b (1 - acc_b) / (n_b - 1)))): each bin's squared gap less the binomial variance of its accuracy (a bin with n_b < 2 adds 0), unbiased for the squared error before the square root
+-- output ece_l2_low: lower end of an approximate 95% interval of the l2 calibration error: sqrt(max(0, D - z SE)) with D the debiased squared error and SE its delta-method standard error (each bin's gap taken as normal with the binomial variance, plus the multinomial variation of the bin counts); NULL for n < 2
+-- output ece_l2_high: sqrt(max(0, D + z SE)), the upper end of that interval
 -- output mean_confidence: mean top-label probability over scored rows (label-free)
 -- output mean_entropy: mean Shannon entropy (nats) of the predicted distribution over scored rows (label-free)
 -- output missing_scores: rows whose scores are NULL or empty
@@ -36,7 +40,7 @@
 -- output average_precision_bound: the largest error the score binning can add to average_precision
 -- note: two-class columns come from the binary query (its notes give the binning and the bounds); they are NULL for logs with more than two classes, and a cell counts as two-class when all its evaluated rows have two classes.
 -- note: rows = missing_scores + invalid_scores + scored rows; scored rows = unlabelled + bad_labels + infinite_loss_rows + evaluated_rows.
--- show: period, version_col, segment_cols, rows, label_coverage, cross_entropy, cross_entropy_se, accuracy, accuracy_low, accuracy_high, ece, brier, brier_se, mean_entropy, mean_confidence, evaluated_rows, missing_scores, invalid_scores, bad_labels, infinite_loss_rows
+-- show: period, version_col, segment_cols, rows, label_coverage, cross_entropy, cross_entropy_se, accuracy, accuracy_low, accuracy_high, ece, ece_l2_debiased, brier, brier_se, mean_entropy, mean_confidence, evaluated_rows, missing_scores, invalid_scores, bad_labels, infinite_loss_rows
 -- example: dbmetrics run rollup --set logs=demo_parquet/logs --set labels=demo_parquet/labels --set id_col=prediction_id --set segment_cols=region --set grain=month
 WITH
 state AS (
@@ -51,10 +55,38 @@ by_bin AS (
     FROM state
     GROUP BY ALL
 ),
+-- Each bin's part of the squared calibration error, times n. With the bin's accuracy a_b,
+-- its gap g_b = a_b - mean confidence and v_b = a_b (1 - a_b) / (n_b - 1), the estimated
+-- binomial variance of a_b: n_b g_b^2 (plug-in); n_b t_b with t_b = g_b^2 - v_b, Kumar, Liang
+-- and Ma's (2019) debiased estimate (0 where n_b < 2); and for the interval's delta-method
+-- variance, n_b^2 v_b (4 G_b + 2 v_b) (the variance of g_b^2 for a normal g_b, times n^2),
+-- n_b G_b and n_b G_b^2, with G_b = max(t_b, 0) the estimated squared gap.
+binned AS (
+    SELECT * EXCLUDE (gap, variance, squared),
+        evaluated_rows * gap * gap AS calibration_sq,
+        coalesce(evaluated_rows * (gap * gap - variance), 0) AS calibration_sq_debiased,
+        coalesce(evaluated_rows * evaluated_rows * variance * (4 * squared + 2 * variance), 0)
+            AS calibration_sq_var,
+        coalesce(evaluated_rows * squared, 0) AS calibration_sq_bins,
+        coalesce(evaluated_rows * squared * squared, 0) AS calibration_sq_bins_sq
+    FROM (
+        SELECT *, CASE WHEN variance IS NOT NULL THEN greatest(gap * gap - variance, 0) END
+            AS squared
+        FROM (
+            SELECT *,
+                (correct_rows - sum_confidence_evaluated) / nullif(evaluated_rows, 0) AS gap,
+                CASE WHEN evaluated_rows > 1 THEN
+                    correct_rows::DOUBLE * (evaluated_rows - correct_rows)
+                    / (evaluated_rows::DOUBLE * evaluated_rows * (evaluated_rows - 1)) END
+                    AS variance
+            FROM by_bin
+        )
+    )
+),
 totals AS (
     SELECT period, {{version_col}}{{segments}},
            sum(COLUMNS(* EXCLUDE (period, bin, {{version_col}}{{segments}})))
-    FROM by_bin
+    FROM binned
     GROUP BY ALL
 ),
 -- The two-class view of each cell (no rows for logs with more than two classes).
@@ -84,6 +116,13 @@ measured AS (
             sqrt(greatest(sum_brier_sq - sum_brier * sum_brier / evaluated_rows, 0)
                  / (evaluated_rows - 1) / evaluated_rows) END AS brier_multiclass_se,
         two_class_rows = evaluated_rows AS two_class,
+        calibration_sq_debiased / nullif(evaluated_rows, 0) AS ece_sq_debiased,
+        -- the delta method: the bins' variances given their counts n_b, then the counts'
+        -- multinomial variation, (sum n_b G_b^2 - (sum n_b G_b)^2 / n)
+        CASE WHEN evaluated_rows > 1 THEN
+            sqrt(greatest(calibration_sq_var + calibration_sq_bins_sq
+                          - calibration_sq_bins * calibration_sq_bins / evaluated_rows, 0))
+            / evaluated_rows END AS ece_sq_se,
         1.959963984540054 AS z  -- the 97.5% standard normal quantile: 95% intervals
     FROM cells
 ),
@@ -120,6 +159,10 @@ SELECT
     brier_multiclass,
     brier_multiclass_se,
     calibration_gap / nullif(evaluated_rows, 0) AS ece,
+    sqrt(calibration_sq / nullif(evaluated_rows, 0)) AS ece_l2,
+    sqrt(greatest(ece_sq_debiased, 0)) AS ece_l2_debiased,
+    sqrt(greatest(ece_sq_debiased - z * ece_sq_se, 0)) AS ece_l2_low,
+    sqrt(greatest(ece_sq_debiased + z * ece_sq_se, 0)) AS ece_l2_high,
     sum_confidence / nullif(scored_rows, 0) AS mean_confidence,
     sum_entropy / nullif(scored_rows, 0) AS mean_entropy,
     missing_scores::BIGINT AS missing_scores,

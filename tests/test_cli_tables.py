@@ -65,7 +65,7 @@ def test_at_100_columns_the_rollup_table_fits_and_says_what_it_left_out(invoke):
     assert lines[0].split()[:4] == ["period", "model_version", "rows", "label_coverage"]
     count = next(i for i, line in enumerate(lines) if re.fullmatch(r"\(\d+ rows\)", line))
     note = " ".join(lines[count + 1 :])
-    assert "of 33 columns not shown:" in note
+    assert "of 37 columns not shown:" in note
     assert "--all-columns" in note and "--columns" in note
     left_out = note.split("not shown: ")[1].split(". See")[0].split(", ")
     assert "infinite_loss_rows" in left_out and "cross_entropy" not in left_out
@@ -77,7 +77,7 @@ def test_columns_picks_and_orders_all_columns_shows_every_one(invoke):
     assert picked[0].split() == ["ece", "period", "rows"]
     assert "not shown" not in picked[-1]
     every = invoke("run", "rollup", "--all-columns").splitlines()
-    assert len(every[0].split()) == 33 and re.fullmatch(r"\(\d+ rows\)", every[-1])
+    assert len(every[0].split()) == 37 and re.fullmatch(r"\(\d+ rows\)", every[-1])
 
 
 def test_an_unknown_picked_column_is_one_line_naming_it(monkeypatch):
@@ -89,7 +89,7 @@ def test_an_unknown_picked_column_is_one_line_naming_it(monkeypatch):
 
 def test_csv_keeps_every_column_at_full_precision(invoke):
     rows = list(csv.DictReader(io.StringIO(invoke("run", "rollup", "-f", "csv"))))
-    assert len(rows[0]) == 33
+    assert len(rows[0]) == 37
     assert len(rows[0]["cross_entropy"]) > 10  # repr of a float64, not 4 digits
 
 

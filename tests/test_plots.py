@@ -428,3 +428,22 @@ def test_heatmap_crosses_cells_flagged_for_the_measure_and_dots_the_others():
     assert [t.get_text() for t in ax.get_yticklabels()] == ["v1 · alpine", "v1 · north"]
     assert ax.get_xlabel() == "week (starting Monday)"
     assert figure.axes[1].get_ylabel() == "prediction JS divergence (nats)"
+
+
+@needs_matplotlib
+def test_reliability_bars_are_the_wilson_intervals_of_the_pooled_bins():
+    from scipy.stats import binomtest
+
+    table = calibration_rows(
+        [
+            (dt.date(2026, 1, 5), "v1", 5, 40, 0.55, 0.5),
+            (dt.date(2026, 1, 12), "v1", 5, 10, 0.56, 0.8),
+            (dt.date(2026, 1, 12), "v1", 9, 7, 0.95, 1.0),
+        ]
+    )
+    figure = plots.reliability_figure(table, "model_version")
+    [bars] = [c for c in figure.axes[0].collections if len(c.get_segments()) == 2]
+    # pooled bin 5: 28 of 50 correct; bin 9: 7 of 7 (Wilson 1927, as scipy computes it)
+    for segment, (k, n) in zip(bars.get_segments(), [(28, 50), (7, 7)]):
+        ci = binomtest(k, n).proportion_ci(confidence_level=0.95, method="wilson")
+        np.testing.assert_allclose(sorted(segment[:, 1]), [ci.low, ci.high], rtol=1e-12)

@@ -3,7 +3,8 @@
 Per bin b of a group: n_b = sum rows, correct_b = sum rows * accuracy,
 confidence_b = sum rows * mean_confidence; then accuracy_b = correct_b / n_b,
 mean confidence = confidence_b / n_b and ECE = sum_b |correct_b - confidence_b| / sum_b n_b,
-the same top-label ECE the calibration query gives for a single period.
+the same top-label ECE the calibration query gives for a single period. Each pooled bin's
+accuracy has its 95% Wilson interval, computed from the pooled counts.
 """
 
 from __future__ import annotations
@@ -14,6 +15,22 @@ import numpy as np
 import pyarrow as pa
 
 from dbmetrics.plots.rows import text
+
+Z95 = 1.959963984540054  # the 97.5% standard normal quantile
+
+
+def wilson_interval(correct: np.ndarray, rows: np.ndarray, z: float = Z95) -> tuple:
+    """(low, high): the Wilson (1927) score interval of the share correct / rows, elementwise,
+
+        (p + z^2/2n -+ z sqrt(p (1 - p)/n + z^2/4n^2)) / (1 + z^2/n),  p = correct / n,
+
+    clipped to [0, 1]; z = 1.96 gives scipy.stats.binomtest(k, n).proportion_ci(method='wilson').
+    """
+    n = rows.astype(float)
+    p = correct / n
+    center = (p + z * z / (2 * n)) / (1 + z * z / n)
+    half = z / (1 + z * z / n) * np.sqrt(p * (1 - p) / n + z * z / (4 * n * n))
+    return np.maximum(center - half, 0.0), np.minimum(center + half, 1.0)
 
 
 @dataclass(frozen=True)
@@ -30,6 +47,11 @@ class Pooled:
     @property
     def evaluated_rows(self) -> int:
         return int(self.rows.sum())
+
+    @property
+    def accuracy_interval(self) -> tuple:
+        """(low, high) per bin: the 95% Wilson interval of the bin's accuracy."""
+        return wilson_interval(np.round(self.accuracy * self.rows), self.rows)
 
     @property
     def ece(self) -> float:

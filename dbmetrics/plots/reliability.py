@@ -1,5 +1,6 @@
 """Reliability diagram: accuracy against mean confidence per confidence bin, one curve per group,
-with the diagonal of perfect calibration and each group's share of rows per bin below."""
+each bin's accuracy with its 95% Wilson interval as an error bar, with the diagonal of perfect
+calibration and each group's share of rows per bin below."""
 
 from __future__ import annotations
 
@@ -43,6 +44,17 @@ def reliability_figure(
             **style,
             label=f"{group.group}: ECE {group.ece:.3f}, {group.evaluated_rows:,} rows",
         )
+        low, high = group.accuracy_interval
+        curve.errorbar(
+            group.mean_confidence,
+            group.accuracy,
+            yerr=[group.accuracy - low, high - group.accuracy],
+            fmt="none",
+            ecolor=style["color"],
+            elinewidth=0.9,
+            capsize=2,
+            clip_on=False,
+        )
         left = group.bin_lower + width * (i + 0.5)
         counts.bar(
             left,
@@ -55,7 +67,13 @@ def reliability_figure(
             linewidth=0.4,
         )
     curve.set(xlim=(0, 1), ylim=(0, 1), ylabel="accuracy (share correct)")
-    curve.legend(loc="upper left", title=by, fontsize=8, title_fontsize=8, frameon=False)
+    curve.legend(
+        loc="upper left",
+        title=f"{by} (bars: 95% Wilson interval)",
+        fontsize=8,
+        title_fontsize=8,
+        frameon=False,
+    )
     counts.set(
         xlabel="mean top-label confidence in the bin (probability)", ylabel="share of its rows"
     )
