@@ -583,5 +583,6 @@ def markdown_table() -> str:
     lines = ["| function | returns | computes |", "|---|---|---|"]
     for fn in FUNCTIONS:
         returns = "STRUCT" if fn.returns == ROW_STATS else type_name(fn.returns)
-        lines.append(f"| `{fn.signature}` | {returns} | {fn.description} |")
+        computes = fn.description.replace("|", "\\|")  # a cell of a Markdown table
+        lines.append(f"| `{fn.signature}` | {returns} | {computes} |")
     return "\n".join(lines) + "\n"
