@@ -18,8 +18,8 @@ from dbmetrics import partials
 from dbmetrics.demo import generate
 from dbmetrics.errors import DbmetricsError
 from dbmetrics.partials import store as store_module
-from dbmetrics.partials.kinds import KIND_NAMES
 from dbmetrics.queries import run_query
+from dbmetrics.queries.state_kinds import KIND_NAMES
 
 
 @pytest.fixture(scope="module")

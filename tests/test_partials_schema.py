@@ -15,8 +15,8 @@ import pytest
 from dbmetrics import partials
 from dbmetrics.demo import generate
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.partials import kinds
 from dbmetrics.queries import run_query
+from dbmetrics.queries import state_kinds as kinds
 
 
 @pytest.fixture(scope="module")

@@ -21,9 +21,9 @@ import pytest
 from dbmetrics import partials
 from dbmetrics.demo import generate
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.partials.kinds import KIND_NAMES
 from dbmetrics.partials.store import Publisher, Store
 from dbmetrics.queries import run_query
+from dbmetrics.queries.state_kinds import KIND_NAMES
 
 START = dt.datetime(2026, 1, 5)
 

@@ -27,9 +27,9 @@ import pytest
 import dbmetrics
 from dbmetrics import partials
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.partials import kinds
 from dbmetrics.partials.store import Publisher
 from dbmetrics.queries import list_queries, run_query
+from dbmetrics.queries import state_kinds as kinds
 
 with warnings.catch_warnings():
     warnings.simplefilter("ignore", FutureWarning)  # pyspark on pandas 3

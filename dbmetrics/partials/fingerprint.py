@@ -20,8 +20,7 @@ from dataclasses import dataclass, replace
 
 from dbmetrics.queries.roles import ColumnRoles, day
 from dbmetrics.queries.schema import quote
-
-from .manifest import NULL_DAY
+from dbmetrics.queries.store_manifest import NULL_DAY
 
 
 @dataclass(frozen=True)

@@ -1,7 +1,7 @@
 """Layout of a partials store, its lock, and the publish step every writer goes through.
 
-    STORE/manifest.json                 what the store holds (manifest.py)
-    STORE/KIND/STEM.G.parquet           one file per day per state kind (kinds.py), written
+    STORE/manifest.json                 what the store holds (queries/store_manifest.py)
+    STORE/KIND/STEM.G.parquet           one file per day per state kind (queries/state_kinds.py),
                                         for generation G
     STORE/.lock                         held (fcntl.flock) by the writer that publishes
     STORE/.staging/XXXX/                one writer's staged files, and its own held .lock
@@ -51,14 +51,22 @@ import pyarrow.parquet as pq
 
 from dbmetrics.atomic import atomic_write, fsync_dir, is_temp, new_file, replace
 from dbmetrics.errors import DbmetricsError
-
-from .kinds import KIND_NAMES, conform
-from .manifest import DAY_FILE, FORMAT, day_file, is_day_key, validated
+from dbmetrics.queries.state_kinds import KIND_NAMES, conform
+from dbmetrics.queries.store_manifest import (
+    DAY_FILE,
+    FORMAT,
+    MANIFEST,
+    day_file,
+    is_day_key,
+    listed_files,
+    missing_files,
+    read_manifest,
+    sort_key,
+)
 
 LOCK = ".lock"
 STAGING = ".staging"
 PENDING = ".pending.json"
-MANIFEST = "manifest.json"
 OLD_TEMP = re.compile(r"\..+\.[0-9]+\.tmp")  # format 1 wrote `.NAME.PID.tmp`
 OWN_ENTRIES = {LOCK, STAGING, PENDING}
 
@@ -124,35 +132,15 @@ class Store:
     def manifest(self) -> dict | None:
         """The manifest (validated, in the version-2 shape), or None for a folder that holds
         no store yet."""
-        try:
-            text = self.manifest_path.read_text()
-        except (FileNotFoundError, NotADirectoryError):
-            return None
-        except ValueError as exc:  # a NUL in the path
-            raise DbmetricsError(f"partials: `{self.root}` is not a usable path ({exc})") from None
-        except (OSError, UnicodeDecodeError) as exc:
-            raise DbmetricsError(f"partials: cannot read {self.manifest_path} ({exc})") from None
-        try:
-            data = json.loads(text)
-        except ValueError as exc:
-            raise DbmetricsError(
-                f"partials: {self.manifest_path} is not valid JSON ({exc})"
-            ) from None
-        return validated(data, str(self.manifest_path))
+        return read_manifest(self.root)
 
     def files(self, kind: str, manifest: dict | None = None) -> list:
         """Absolute paths of every day's file of `kind`, from the manifest."""
-        manifest = manifest or self.manifest() or {"days": {}}
-        return [str(self.root / entry["files"][kind]) for entry in manifest["days"].values()]
+        return listed_files(self.root, kind, manifest or self.manifest() or {"days": {}})
 
     def missing_files(self, manifest: dict) -> list:
         """Files the manifest lists that are not in the store (relative paths)."""
-        return sorted(
-            rel
-            for entry in manifest["days"].values()
-            for rel in entry["files"].values()
-            if not (self.root / rel).is_file()
-        )
+        return missing_files(self.root, manifest)
 
     @contextlib.contextmanager
     def locked(self, waiting=None):
@@ -292,7 +280,7 @@ class Publisher:
         self.staged = {}  # (kind, key) -> staged path
 
     def stage(self, kind: str, key: str, table: pa.Table) -> None:
-        """Write `table`, cast to the declared schema (kinds.py), as the day `key`'s file of
+        """Write `table`, cast to the declared schema (state_kinds.py), as the day `key`'s file of
         state kind `kind`."""
         self._check(kind, key)
         path = write_day_file(self.folder, kind, table)
@@ -411,8 +399,6 @@ def write_json(root: Path, name: str, data) -> None:
 
 def describe(store) -> dict:
     """The manifest, the days held, stale days and missing files, for `partials show`."""
-    from .manifest import sort_key
-
     s = Store(store)
     manifest = s.manifest()
     if manifest is None:

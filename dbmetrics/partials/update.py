@@ -25,12 +25,12 @@ from dbmetrics.errors import DbmetricsError
 from dbmetrics.queries.header import COLUMN_MAP, column_roles_info
 from dbmetrics.queries.roles import column_roles
 from dbmetrics.queries.schema import first_line, open_source
+from dbmetrics.queries.state_kinds import KIND_NAMES, compute_kinds
 from dbmetrics.queries.state_sql import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS
+from dbmetrics.queries.store_manifest import sort_key
 from dbmetrics.queries.values import convert, with_defaults
 
 from .fingerprint import fingerprints, only_days
-from .kinds import KIND_NAMES, compute_kinds
-from .manifest import sort_key
 from .store import Publisher, Store
 
 RECORDED = (

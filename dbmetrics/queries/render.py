@@ -26,6 +26,7 @@ from .state_sql import (
     empty_binary_state,
     fragments,
 )
+from .store_sql import store_fragments
 from .values import convert, split_names, with_defaults
 
 ALIAS = re.compile(r"\bAS\s+([a-z_][a-z0-9_]*)\b")  # lower-case aliases; SQL types are upper-case
@@ -135,8 +136,6 @@ def render_info(
     }
     filled, roles = {}, None
     if all(p in texts for p in REQUIRED_ROLES) and texts.get("partials") is not None:
-        from dbmetrics.partials import store_fragments  # partials builds on the saved queries
-
         store_sql, store_values = store_fragments(texts, params)
         filled.update(store_sql)
         values.update(store_values)

@@ -24,7 +24,6 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.partials.kinds import KINDS_BY_NAME, column_type
 from dbmetrics.partials.store import Publisher, write_day_file
 from dbmetrics.partials.update import (
     KEY,
@@ -36,6 +35,7 @@ from dbmetrics.partials.update import (
 )
 from dbmetrics.queries.roles import column_roles
 from dbmetrics.queries.schema import CSV_SUFFIXES, first_line, open_source
+from dbmetrics.queries.state_kinds import KINDS_BY_NAME, column_type
 from dbmetrics.queries.state_sql import CLASS_STATE_COLUMNS, INTERNAL, STATE_COLUMNS
 from dbmetrics.queries.values import convert
 

@@ -4,7 +4,7 @@ No pyspark here: a task gets Arrow record batches of the log's role columns (and
 separate label table, each prediction's rows of that table as a list column, LATE) and
 returns Arrow batches. Inside, a DuckDB connection reads the rows with the DuckDB update's
 own functions: `partials.fingerprint.fingerprints` (per-day fingerprints of rows and
-labels), `only_days` and `partials.kinds.compute_kinds` (the partial states, through the
+labels), `only_days` and `queries.state_kinds.compute_kinds` (the partial states, through the
 `predictions` SQL: day cut, label conversion, the conflicting-label rule). Every output is a
 sum over rows, so Spark only adds the tasks' outputs up.
 """
@@ -104,7 +104,7 @@ def states_of_task(spec: TaskSpec, batches: Iterator[pa.RecordBatch]) -> Iterato
     """mapInArrow body: the partial states of the task's rows on `spec.days` (and, for a
     zoned time column, the days either side, which the driver drops), as `spec.output`."""
     from dbmetrics.partials.fingerprint import only_days
-    from dbmetrics.partials.kinds import compute_kinds
+    from dbmetrics.queries.state_kinds import compute_kinds
 
     batches = [b for b in batches if b.num_rows]
     if not batches:

@@ -4,8 +4,8 @@ Each kind is one Parquet file per day in the store folder of the same name, the
 {{placeholder}} of that name in the saved queries, and a table computed from the logs. Every
 column after the day, the version and segment columns and the kind's own keys is additive:
 counts (BIGINT) add with sum, `sum_*` columns with fsum (a Kahan sum). The store itself
-(store.py, update.py, fragments.py) only loops over STATE_KINDS: a new kind is a new entry
-here and its table in `compute_kinds`, nothing else.
+(partials/store.py, partials/update.py, store_sql.py) only loops over STATE_KINDS: a new kind
+is a new entry here and its table in `compute_kinds`, nothing else.
 """
 
 from dataclasses import dataclass
@@ -13,9 +13,10 @@ from dataclasses import dataclass
 import pyarrow as pa
 
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.queries.class_sums import EXTRA_STATES
-from dbmetrics.queries.engine import partial_states
-from dbmetrics.queries.state_sql import CLASS_STATE_COLUMNS, STATE_COLUMNS
+
+from .class_sums import EXTRA_STATES
+from .engine import partial_states
+from .state_sql import CLASS_STATE_COLUMNS, STATE_COLUMNS
 
 
 @dataclass(frozen=True)

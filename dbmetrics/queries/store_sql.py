@@ -8,16 +8,17 @@ is refused, naming the parameter and both values.
 """
 
 from collections import Counter
+from pathlib import Path
 
 import pyarrow.parquet as pq
 
 from dbmetrics.errors import DbmetricsError
-from dbmetrics.queries.roles import key_fragments
-from dbmetrics.queries.schema import quote
-from dbmetrics.queries.values import split_names
 
-from .kinds import STATE_KINDS, StateKind, check
-from .store import Store
+from .roles import key_fragments
+from .schema import quote
+from .state_kinds import STATE_KINDS, StateKind, check
+from .store_manifest import listed_files, missing_files, read_manifest
+from .values import split_names
 
 UNAVAILABLE = None  # a store keeps sums, not predictions: render refuses {{predictions}}
 FIXED = ("time_col", "scores_col", "scores_kind", "label_col", "labels", "id_col", "classes")
@@ -61,15 +62,15 @@ def check_roles(recorded: dict, logs, texts: dict, given: dict, root) -> None:
 def store_fragments(texts: dict, given: dict | None = None) -> tuple:
     """(fragments, bound values) for a query run with partials=STORE; `given` are the
     parameters the caller set (texts adds the defaults)."""
-    s = Store(texts["partials"])
-    manifest = s.manifest()
+    root = Path(texts["partials"])
+    manifest = read_manifest(root)
     if manifest is None or not manifest["days"]:
         raise DbmetricsError(
             f"partials: `{texts['partials']}` holds no summarised days; "
             "build it with `dbmetrics partials update`"
         )
     recorded = manifest["column_roles"]
-    check_roles(recorded, manifest["logs"], texts, given or {}, s.root)
+    check_roles(recorded, manifest["logs"], texts, given or {}, root)
     stored_keys = [recorded["version_col"], *split_names(recorded["segment_cols"])]
     version = texts["version_col"]
     segments = split_names(texts["segment_cols"])
@@ -84,10 +85,10 @@ def store_fragments(texts: dict, given: dict | None = None) -> tuple:
             f"partials: the store was built with bins={recorded['bins']}; "
             f"this query asks for bins={texts['bins']}"
         )
-    absent = s.missing_files(manifest)
+    absent = missing_files(root, manifest)
     if absent:
         raise DbmetricsError(
-            f"partials: the store {s.root} lists {len(absent)} file(s) that are gone "
+            f"partials: the store {root} lists {len(absent)} file(s) that are gone "
             f"(first {absent[0]}); `dbmetrics partials update` recomputes them"
         )
     files = {kind.name: 0 for kind in STATE_KINDS}
@@ -95,7 +96,7 @@ def store_fragments(texts: dict, given: dict | None = None) -> tuple:
     for entry in manifest["days"].values():
         for kind, rel in entry["files"].items():
             files[kind] += 1
-            older[kind].update(check(kind, pq.read_schema(s.root / rel), str(s.root / rel)))
+            older[kind].update(check(kind, pq.read_schema(root / rel), str(root / rel)))
     keys = ", ".join(quote(c) for c in (version, *segments))
     fragments = {
         **key_fragments(version, segments),
@@ -125,5 +126,5 @@ def store_fragments(texts: dict, given: dict | None = None) -> tuple:
             f"partials_{kind.name}",
             {c: n == files[kind.name] for c, n in older[kind.name].items()},
         )
-        bound[f"partials_{kind.name}"] = s.files(kind.name, manifest)
+        bound[f"partials_{kind.name}"] = listed_files(root, kind.name, manifest)
     return fragments, bound

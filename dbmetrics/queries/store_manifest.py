@@ -21,18 +21,21 @@ still in the logs once and writes version 4 (their fingerprints are dropped on r
 Version 1 stores (no fingerprints, no time zone) and version 2 stores (class_state without
 the per-class sums, no class_bin_state, confusion_state, binary_state) are read with their
 STATE only: queries of the other kinds ask for an update. A STATE file written before
-version 4 lacks `sum_brier_sq` (kinds.py: `StateKind.added`): it reads as NaN, so the
+version 4 lacks `sum_brier_sq` (state_kinds.py: `StateKind.added`): it reads as NaN, so the
 Brier standard errors of the periods holding such a day are NULL; a day kept after its
 rows left the logs keeps its file.
 """
 
 import datetime as dt
+import json
 import re
+from pathlib import Path
 
 from dbmetrics.errors import DbmetricsError
 
-from .kinds import KIND_NAMES
+from .state_kinds import KIND_NAMES
 
+MANIFEST = "manifest.json"  # in the store folder
 PREFIX = "dbmetrics-partials/"
 VERSION = 4
 FORMAT = f"{PREFIX}{VERSION}"
@@ -162,3 +165,37 @@ def day_entry(entry, key: str, version: str, bad) -> dict:
         if kind not in KIND_NAMES or match is None or match.group(1) != kind:
             bad(f"day `{key}`: `{kind}: {path}` is not a {'/'.join(KIND_NAMES)} day file")
     return {"files": dict(files), "fingerprint": fingerprint}
+
+
+def read_manifest(root: Path) -> dict | None:
+    """The manifest of the store folder `root` (validated, in the version-2 shape), or None
+    for a folder that holds no store yet."""
+    path = Path(root) / MANIFEST
+    try:
+        text = path.read_text()
+    except (FileNotFoundError, NotADirectoryError):
+        return None
+    except ValueError as exc:  # a NUL in the path
+        raise DbmetricsError(f"partials: `{root}` is not a usable path ({exc})") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise DbmetricsError(f"partials: cannot read {path} ({exc})") from None
+    try:
+        data = json.loads(text)
+    except ValueError as exc:
+        raise DbmetricsError(f"partials: {path} is not valid JSON ({exc})") from None
+    return validated(data, str(path))
+
+
+def listed_files(root: Path, kind: str, manifest: dict) -> list:
+    """Absolute paths of every day's file of `kind` the manifest lists."""
+    return [str(Path(root) / entry["files"][kind]) for entry in manifest["days"].values()]
+
+
+def missing_files(root: Path, manifest: dict) -> list:
+    """Files the manifest lists that are not in the store (relative paths)."""
+    return sorted(
+        rel
+        for entry in manifest["days"].values()
+        for rel in entry["files"].values()
+        if not (Path(root) / rel).is_file()
+    )
