@@ -40,7 +40,7 @@ _CREATE = os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_NOFOLLOW | getattr(os, "O_
 _NO_FOLDER_SYNC = {errno.EINVAL, errno.EBADF, errno.ENOTSUP, errno.EOPNOTSUPP, errno.EROFS}
 
 
-def temp_prefix(path: Path) -> str:
+def _temp_prefix(path: Path) -> str:
     """Temp files for ``path`` are named ``.NAME.<random>.tmp`` beside it."""
     return f".{path.name}."
 
@@ -103,7 +103,7 @@ def atomic_path(path, mode: int | None = None) -> Iterator[Path]:
     """
     target = Path(path)
     with _naming(target, None):
-        fd, tmp = _create(target.parent, temp_prefix(target))
+        fd, tmp = _create(target.parent, _temp_prefix(target))
     os.close(fd)
     try:
         with _naming(target, tmp):
@@ -120,7 +120,7 @@ def atomic_write(path, write: Callable[[BinaryIO], None], mode: int | None = Non
     """Call ``write(f)`` on a binary file that becomes ``path`` only once it is complete."""
     target = Path(path)
     with _naming(target, None):
-        tmp = new_file(target.parent, temp_prefix(target), write)
+        tmp = new_file(target.parent, _temp_prefix(target), write)
     try:
         with _naming(target, tmp):
             _publish(tmp, target, mode)

@@ -87,7 +87,7 @@ def probs(kernel):
     return lambda p, *rest: kernel(dist.as_distribution(p), *rest)
 
 
-def of_softmax(kernel):
+def _of_softmax(kernel):
     """Apply a kernel to the softmax probabilities of logits."""
     return lambda z, *rest: kernel(softmax.softmax(z), *rest)
 
@@ -314,7 +314,7 @@ FUNCTIONS = (
         ("logits",),
         (SCORES,),
         DOUBLE,
-        lists_to_doubles(of_softmax(dist.entropy), LOGITS_PAD),
+        lists_to_doubles(_of_softmax(dist.entropy), LOGITS_PAD),
         "entropy of `softmax(z)`",
         "softmax_entropy([1.0, 2.0, 3.0])",
         ("logits",),
@@ -337,7 +337,7 @@ FUNCTIONS = (
         ("logits",),
         (SCORES,),
         DOUBLE,
-        lists_to_doubles(of_softmax(predictions.confidence), LOGITS_PAD),
+        lists_to_doubles(_of_softmax(predictions.confidence), LOGITS_PAD),
         "largest softmax probability",
         "confidence([1.0, 2.0, 3.0])",
         ("logits",),
@@ -357,7 +357,7 @@ FUNCTIONS = (
         ("logits",),
         (SCORES,),
         DOUBLE,
-        lists_to_doubles(of_softmax(predictions.margin), LOGITS_PAD),
+        lists_to_doubles(_of_softmax(predictions.margin), LOGITS_PAD),
         "largest minus second-largest softmax probability",
         "margin([1.0, 2.0, 3.0])",
         ("logits",),
@@ -397,7 +397,7 @@ FUNCTIONS = (
         ),
         (SCORES, BIGINT),
         DOUBLE,
-        lists_and_label_to_doubles("brier_score", of_softmax(losses.brier_score), LOGITS_PAD),
+        lists_and_label_to_doubles("brier_score", _of_softmax(losses.brier_score), LOGITS_PAD),
         "`sum_j (softmax(z)_j - [j = label])^2`, range [0, 2]",
         "brier_score([1.0, 2.0, 3.0], 2)",
         (

@@ -80,11 +80,11 @@ def merge(
             f"its parameters are: {', '.join(declared) or '(none)'}"
         )
     if known is not None:
-        check_keys(project, known)
+        _check_keys(project, known)
     return {**project.params_for(query, set(declared)), **given}
 
 
-def check_keys(project: Project, known: dict) -> None:
+def _check_keys(project: Project, known: dict) -> None:
     """Every ``[params]`` key and ``[queries.NAME]`` names something a query in ``known``
     declares."""
     every = sorted(set().union(*known.values()))

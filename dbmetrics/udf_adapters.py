@@ -30,7 +30,7 @@ LOGITS_PAD, PROBS_PAD = -np.inf, 0.0
 MAX_BINS = 1_000_000
 
 
-def checked_labels(name: str, labels, sm) -> tuple[np.ndarray, np.ndarray]:
+def _checked_labels(name: str, labels, sm) -> tuple[np.ndarray, np.ndarray]:
     """Labels of the rows that can be scored; raises if one is outside [0, K)."""
     y, y_present = integer_column(labels)
     usable = y_present & sm.present
@@ -44,7 +44,7 @@ def checked_labels(name: str, labels, sm) -> tuple[np.ndarray, np.ndarray]:
     return np.where(usable, y, 0), usable
 
 
-def same_lengths(name: str, a, b, what: str) -> None:
+def _same_lengths(name: str, a, b, what: str) -> None:
     both = a.present & b.present
     differ = both & (a.lengths != b.lengths)
     if differ.any():
@@ -72,7 +72,7 @@ def lists_to_doubles(kernel, pad):
     return udf
 
 
-def undefined_rows(values: np.ndarray) -> np.ndarray:
+def _undefined_rows(values: np.ndarray) -> np.ndarray:
     """Rows with no defined prediction: NaN, +inf, or every class -inf."""
     return ~np.isfinite(row_max(values))
 
@@ -80,7 +80,7 @@ def undefined_rows(values: np.ndarray) -> np.ndarray:
 def lists_to_class(kernel, pad):
     def udf(scores):
         sm = score_matrix(scores, pad)
-        return integers(kernel(sm.values), ~sm.present | undefined_rows(sm.values))
+        return integers(kernel(sm.values), ~sm.present | _undefined_rows(sm.values))
 
     return udf
 
@@ -88,9 +88,9 @@ def lists_to_class(kernel, pad):
 def correct_class(name, pad):
     def udf(scores, labels):
         sm = score_matrix(scores, pad)
-        y, usable = checked_labels(name, labels, sm)
+        y, usable = _checked_labels(name, labels, sm)
         out = predicted_class(sm.values) == y
-        return booleans(out, ~usable | undefined_rows(sm.values))
+        return booleans(out, ~usable | _undefined_rows(sm.values))
 
     return udf
 
@@ -98,7 +98,7 @@ def correct_class(name, pad):
 def lists_and_label_to_doubles(name, kernel, pad):
     def udf(scores, labels):
         sm = score_matrix(scores, pad)
-        y, usable = checked_labels(name, labels, sm)
+        y, usable = _checked_labels(name, labels, sm)
         return doubles(kernel(sm.values, y), ~usable)
 
     return udf
@@ -107,7 +107,7 @@ def lists_and_label_to_doubles(name, kernel, pad):
 def two_lists_to_doubles(name, kernel, pad, what):
     def udf(first, second):
         a, b = score_matrix(first, pad), score_matrix(second, 0.0)
-        same_lengths(name, a, b, what)
+        _same_lengths(name, a, b, what)
         k = max(a.values.shape[1], b.values.shape[1])
         return doubles(
             kernel(widen(a.values, k, pad), widen(b.values, k, 0.0)), ~(a.present & b.present)

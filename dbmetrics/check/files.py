@@ -27,10 +27,10 @@ def schemas(con, source: Source) -> dict:
     by_file = defaultdict(list)
     for file, name, children, kind in rows:
         by_file[file].append((name, children or 0, kind))
-    return {file: top_level(nodes) for file, nodes in by_file.items()}
+    return {file: _top_level(nodes) for file, nodes in by_file.items()}
 
 
-def top_level(nodes: list) -> dict:
+def _top_level(nodes: list) -> dict:
     """The root's children from a depth-first (name, num_children, type) list."""
 
     def skip(pos):  # the position after the subtree at pos

@@ -44,7 +44,7 @@ def check_log(con: duckdb.DuckDBPyConnection, params: dict) -> "Report":
     try:
         return assemble(con, r, fetch)
     except duckdb.Error as exc:
-        raise located(con, r, exc) from None
+        raise _located(con, r, exc) from None
 
 
 def resolved(con, params: dict) -> Resolved:
@@ -53,11 +53,11 @@ def resolved(con, params: dict) -> Resolved:
     try:
         return resolve(con, params)
     except DbmetricsError as exc:
-        hint = drift_hint(con, params.get("logs"))
+        hint = _drift_hint(con, params.get("logs"))
         raise DbmetricsError(f"{exc}; {hint}" if hint else str(exc)) from None
 
 
-def drift_hint(con, logs: str | None) -> str:
+def _drift_hint(con, logs: str | None) -> str:
     try:
         source = open_source(con, "logs", str(logs or "").strip())
         if not is_parquet(source):
@@ -68,7 +68,7 @@ def drift_hint(con, logs: str | None) -> str:
     return " ".join(f"note: {d.column} {d.detail}" for d in found)
 
 
-def located(con, r: Resolved, exc: duckdb.Error) -> DbmetricsError:
+def _located(con, r: Resolved, exc: duckdb.Error) -> DbmetricsError:
     """The error, naming the file that cannot be read when there is one."""
     for name, source in (("logs", r.logs), ("labels", r.roles.labels)):
         if source is not None and is_parquet(source):
@@ -97,12 +97,12 @@ def assemble(con, r: Resolved, fetch) -> Report:
     }
     columns = tuple((c, t, role_of.get(c)) for c, t in r.logs.columns.items())
     grouped = fetch(sql.rows(r))
-    issues = row_issues(r, grouped) + empty_answers(r, grouped)
-    classes = version_classes(grouped)
+    issues = _row_issues(r, grouped) + _empty_answers(r, grouped)
+    classes = _version_classes(grouped)
     issues.append(Issue("classes", "k_differs", sum(v.other_k_rows for v in classes), True))
-    issues.append(kind_issue(roles.kind, grouped))
+    issues.append(_kind_issue(roles.kind, grouped))
     if roles.classes:
-        issues.append(classes_issue(split_names(roles.classes_text), classes))
+        issues.append(_classes_issue(split_names(roles.classes_text), classes))
     notes, file_stats, drift = [], (), ()
     if is_parquet(r.logs):
         drift = tuple(files.drift(con, r.logs, role_of)) + tuple(
@@ -161,7 +161,7 @@ def assemble(con, r: Resolved, fetch) -> Report:
         r.texts["grain"],
         columns,
         drift,
-        tuple((p, v, n) for (p, v), n in sorted(periods.items(), key=null_last)),
+        tuple((p, v, n) for (p, v), n in sorted(periods.items(), key=_null_last)),
         tuple(classes),
         issues,
         file_stats,
@@ -170,7 +170,7 @@ def assemble(con, r: Resolved, fetch) -> Report:
     )
 
 
-def row_issues(r: Resolved, grouped: list) -> list:
+def _row_issues(r: Resolved, grouped: list) -> list:
     """Issues by reason from the grouped row classification (every checked reason listed)."""
     score = Counter()
     label = Counter()
@@ -196,7 +196,7 @@ def row_issues(r: Resolved, grouped: list) -> list:
     )
 
 
-def empty_answers(r: Resolved, grouped: list) -> list:
+def _empty_answers(r: Resolved, grouped: list) -> list:
     """The log-wide empty answers the saved queries warn about (notes.py): no row with usable
     scores; a label table whose ids match no prediction."""
     rows = sum(g[-1] for g in grouped)
@@ -222,7 +222,7 @@ def empty_answers(r: Resolved, grouped: list) -> list:
     ]
 
 
-def kind_issue(kind: str, grouped: list) -> Issue:
+def _kind_issue(kind: str, grouped: list) -> Issue:
     """scores_kind_mismatch: every row's scores (not a sample) against scores_kind; the
     count is the rows that contradict it, the detail the likely kind."""
     shapes = Counter()
@@ -237,7 +237,7 @@ def kind_issue(kind: str, grouped: list) -> Issue:
     return Issue("scores", "scores_kind_mismatch", count if message else 0, True, message or "")
 
 
-def classes_issue(names: list, classes: list) -> Issue:
+def _classes_issue(names: list, classes: list) -> Issue:
     """classes_count_differs: rows of versions whose usual K is not the number of names."""
     off = [v for v in classes if v.usual_k is not None and v.usual_k != len(names)]
     detail = ", ".join(f"{v.version}: K = {v.usual_k}" for v in off)
@@ -250,7 +250,7 @@ def classes_issue(names: list, classes: list) -> Issue:
     )
 
 
-def version_classes(grouped: list) -> list:
+def _version_classes(grouped: list) -> list:
     """Per version: rows with a K, the usual K (most rows; the smaller on a tie), the rows
     with another K, and every K seen."""
     ks = defaultdict(Counter)
@@ -258,7 +258,7 @@ def version_classes(grouped: list) -> list:
         if k is not None:
             ks[version][k] += n
     out = []
-    for version, counts in sorted(ks.items(), key=lambda item: null_last((item[0],))):
+    for version, counts in sorted(ks.items(), key=lambda item: _null_last((item[0],))):
         usual = min(counts, key=lambda k: (-counts[k], k))
         total = sum(counts.values())
         out.append(
@@ -267,7 +267,7 @@ def version_classes(grouped: list) -> list:
     return out
 
 
-def null_last(item):
+def _null_last(item):
     """Sort key: NULLs after values, element by element."""
     key = item[0] if isinstance(item[0], tuple) else item[:1]
     return tuple((v is None, v if v is not None else 0) for v in key)

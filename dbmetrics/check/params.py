@@ -88,7 +88,7 @@ def resolve(con, params: dict) -> Resolved:
     logs = sources["logs"]
     id_col = logs.column(texts["id_col"], "id_col") if texts["id_col"] else None
     target = logs.column(texts["target_col"], "target_col") if texts["target_col"] else None
-    if target is not None and not is_number_list(logs.type_of(target)):
+    if target is not None and not _is_number_list(logs.type_of(target)):
         raise DbmetricsError(
             f"target_col: column `{target}` is {logs.type_of(target)}; "
             "expected a list of numbers (FLOAT[] or DOUBLE[])"
@@ -96,5 +96,5 @@ def resolve(con, params: dict) -> Resolved:
     return Resolved(texts, values, roles, id_col, target)
 
 
-def is_number_list(kind: str) -> bool:
+def _is_number_list(kind: str) -> bool:
     return kind.endswith("]") and kind.rsplit("[", 1)[0].startswith(NUMERIC_TYPES)

@@ -67,7 +67,7 @@ def command(ctx, settings, fmt, output):
             f"--output: check writes a table (.txt) or json (.json) report, not {fmt}"
         )
     report = session.execute(lambda con: check.check_log(con, params))
-    data = (as_json(report) if fmt == "json" else as_text(report)).encode()
+    data = (_as_json(report) if fmt == "json" else as_text(report)).encode()
     if output:
         write_output(output, lambda f: f.write(data))
         session.note(f"wrote the report to {output}: {summary(report)}")
@@ -82,7 +82,7 @@ def summary(report) -> str:
     return "clean" if report.clean else f"{n} problem{'s' * (n > 1)} found"
 
 
-def as_json(report) -> str:
+def _as_json(report) -> str:
     return (
         json.dumps(report.to_dict(), indent=1, ensure_ascii=False, allow_nan=False, default=str)
         + "\n"

@@ -57,7 +57,7 @@ def encode(table: pa.Table, fmt: str, out: BinaryIO, formulas: bool = False) -> 
     (default: neutralised, see ``neutralise_formulas``).
     """
     if fmt == "csv" and not formulas:
-        table = neutralise_formulas(table)
+        table = _neutralise_formulas(table)
     try:
         _WRITERS[fmt](table, out)
     except (pa.ArrowNotImplementedError, pa.ArrowInvalid) as e:
@@ -71,13 +71,13 @@ _FORMULA = "^[=+\\-@\t\r]"
 _NUMBER = "[+-]?(?:[0-9]+\\.?[0-9]*|\\.[0-9]+)(?:[eE][+-]?[0-9]+)?"
 
 
-def neutralise_formulas(table: pa.Table) -> pa.Table:
+def _neutralise_formulas(table: pa.Table) -> pa.Table:
     """Text cells (and column names) that start with ``= + - @``, a tab or a carriage return get a
     leading ``'``, so a spreadsheet opening the CSV shows them as text instead of running them as
     formulas (the OWASP "CSV injection" advice). A text cell that is just a signed number, such
     as ``-1.5``, cannot run anything and is left alone; numeric columns are never touched.
 
-    >>> t = neutralise_formulas(pa.table({"seg": ["=1+2", "-1.5", "a", None], "x": [-1, 2, 3, 4]}))
+    >>> t = _neutralise_formulas(pa.table({"seg": ["=1+2", "-1.5", "a", None], "x": [-1, 2, 3, 4]}))
     >>> t.to_pydict()
     {'seg': ["'=1+2", '-1.5', 'a', None], 'x': [-1, 2, 3, 4]}
     """

@@ -36,10 +36,10 @@ def merge(query: str, declared: list[str], project: Project, cli: dict[str, str]
     """Template defaults < project ``[params]`` < ``[queries.QUERY]`` < ``--set``
     (dbmetrics.project.merge), every project key checked against the saved queries and the
     check; the saved queries refuse unknown ``--set`` names."""
-    return project_merge(query, declared, project, cli, known_parameters(project.query_dirs))
+    return project_merge(query, declared, project, cli, _known_parameters(project.query_dirs))
 
 
-def known_parameters(query_dirs) -> dict[str, set[str]]:
+def _known_parameters(query_dirs) -> dict[str, set[str]]:
     """query name -> its parameter names: every saved query in the folders that exist (a
     missing folder is the command's own error), and the check."""
     dirs = [d for d in query_dirs if Path(d).is_dir()]

@@ -88,7 +88,7 @@ def emit(
     else ``key`` (the query's key columns; all when None), the table fitted to the terminal.
     """
     fmt = choose_format(fmt, output)
-    flagged = flagged_rows(table, flag_column) if flag_column else 0
+    flagged = _flagged_rows(table, flag_column) if flag_column else 0
     ctx = click.get_current_context(silent=True)
     formulas = bool(ctx and ctx.meta.get(CSV_FORMULAS))
     if fmt in ("table", "markdown"):
@@ -120,7 +120,7 @@ def emit(
     return 0
 
 
-def flagged_rows(table: pa.Table, column: str) -> int:
+def _flagged_rows(table: pa.Table, column: str) -> int:
     """How many rows are true in the BOOLEAN ``column`` (NULL is not true)."""
     if column not in table.column_names:
         raise DbmetricsError(

@@ -37,7 +37,7 @@ def normalised(counts: np.ndarray) -> np.ndarray:
         return counts / np.where(ok, total, np.nan)[:, None]
 
 
-def xlogy_ratio(p: np.ndarray, q: np.ndarray) -> np.ndarray:
+def _xlogy_ratio(p: np.ndarray, q: np.ndarray) -> np.ndarray:
     """Elementwise p log(p/q) with 0 where p = 0 (q >= 0), +inf where q = 0 < p.
 
     Same convention as scipy.special.rel_entr; log p - log q cannot overflow as p/q can
@@ -67,7 +67,7 @@ def kl_divergence(p: np.ndarray, q: np.ndarray) -> np.ndarray:
     >>> round(float(kl_divergence(np.array([[.36, .48, .16]]), np.full((1, 3), 1/3))[0]), 7)
     0.0852996
     """
-    return clipped(xlogy_ratio(p, q).sum(axis=1))
+    return clipped(_xlogy_ratio(p, q).sum(axis=1))
 
 
 def js_divergence(p: np.ndarray, q: np.ndarray) -> np.ndarray:
@@ -91,7 +91,7 @@ def population_stability_index(actual: np.ndarray, expected: np.ndarray) -> np.n
     No smoothing here; callers that compare sparse histograms smooth the counts first.
     """
     return clipped(
-        xlogy_ratio(actual, expected).sum(axis=1) + xlogy_ratio(expected, actual).sum(axis=1)
+        _xlogy_ratio(actual, expected).sum(axis=1) + _xlogy_ratio(expected, actual).sum(axis=1)
     )
 
 

@@ -38,7 +38,7 @@ def cross_entropy_probs(p: np.ndarray, y: np.ndarray) -> np.ndarray:
         return 0.0 - np.log(pick(as_distribution(p), y))
 
 
-def soft_cross_entropy_log(logp: np.ndarray, t: np.ndarray) -> np.ndarray:
+def _soft_cross_entropy_log(logp: np.ndarray, t: np.ndarray) -> np.ndarray:
     """-sum_j t_j log p_j given log-probabilities; t is checked and renormalised."""
     t = as_distribution(t)
     with np.errstate(invalid="ignore"):
@@ -49,13 +49,13 @@ def soft_cross_entropy_log(logp: np.ndarray, t: np.ndarray) -> np.ndarray:
 
 def soft_cross_entropy_logits(z: np.ndarray, t: np.ndarray) -> np.ndarray:
     """Cross-entropy of softmax(z) against a target distribution t."""
-    return soft_cross_entropy_log(log_softmax(z), t)
+    return _soft_cross_entropy_log(log_softmax(z), t)
 
 
 def soft_cross_entropy_probs(p: np.ndarray, t: np.ndarray) -> np.ndarray:
     """Cross-entropy of probabilities p against a target distribution t."""
     with np.errstate(divide="ignore"):
-        return soft_cross_entropy_log(np.log(as_distribution(p)), t)
+        return _soft_cross_entropy_log(np.log(as_distribution(p)), t)
 
 
 def brier_score(p: np.ndarray, y: np.ndarray) -> np.ndarray:

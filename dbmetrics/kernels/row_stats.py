@@ -49,7 +49,7 @@ class RowStats:
         return self.scored & (self.label_issue == 0)
 
 
-def label_issues(y: np.ndarray, y_present: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+def _label_issues(y: np.ndarray, y_present: np.ndarray, lengths: np.ndarray) -> np.ndarray:
     """0 ok, 1 NULL label, 2 label outside [0, K_row) (only judged where K_row is known)."""
     issue = np.zeros(len(y), np.int8)
     issue[(lengths > 0) & ((y < 0) | (y >= lengths))] = LABEL_OUT_OF_RANGE
@@ -66,7 +66,7 @@ def transposed(values: np.ndarray) -> np.ndarray:
     return np.array(values.T, dtype=np.float64, order="C")
 
 
-def first_argmax(t: np.ndarray, top) -> np.ndarray:
+def _first_argmax(t: np.ndarray, top) -> np.ndarray:
     """Index of the first entry equal to the column maximum `top` in a (K, n) block."""
     if t.shape[0] > SHORT_AXIS:
         return t.argmax(axis=0).astype(np.int32)
@@ -76,7 +76,7 @@ def first_argmax(t: np.ndarray, top) -> np.ndarray:
     return np.where(t[0] == top, np.int32(0), idx)
 
 
-def brier_and_correct(pt, y, labelled, pred):
+def _brier_and_correct(pt, y, labelled, pred):
     """sum_j (p_j - [j = y])^2 computed directly, and pred == y; pt is modified."""
     cols = np.arange(pt.shape[1])
     y_safe = np.where(labelled, y, 0)
@@ -88,9 +88,9 @@ def brier_and_correct(pt, y, labelled, pred):
 def assemble(score_issue, y, y_present, lengths, pt, conf, pred, loss, entropy, bins) -> RowStats:
     """Shared tail: label checks, Brier, correctness, bins, NaN-masking of unusable rows."""
     scored = score_issue == 0
-    label_issue = label_issues(y, y_present, lengths)
+    label_issue = _label_issues(y, y_present, lengths)
     labelled = scored & (label_issue == 0)
-    brier, correct = brier_and_correct(pt, y, labelled, pred)
+    brier, correct = _brier_and_correct(pt, y, labelled, pred)
     correct = correct.astype(np.float64)
     if not labelled.all():
         for a in (loss, brier, correct):
@@ -127,7 +127,7 @@ def logit_row_stats(z, present, lengths, y, y_present, bins) -> RowStats:
     cols = np.arange(zt.shape[1])
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         zt -= m
-        top = first_argmax(zt, 0.0)
+        top = _first_argmax(zt, 0.0)
         pt = np.exp(zt)
         s = class_sum(pt, axis=0)  # the additions of scipy's log_softmax, bit for bit
         log_s = np.log(s)
@@ -164,5 +164,5 @@ def prob_row_stats(p, present, lengths, y, y_present, bins) -> RowStats:
         entropy = 0.0 - np.einsum("ij,ij->j", pt, np.where(pt > 0, logp, 0.0))
         conf = pt.max(axis=0)
     return assemble(
-        score_issue, y, y_present, lengths, pt, conf, first_argmax(pt, conf), loss, entropy, bins
+        score_issue, y, y_present, lengths, pt, conf, _first_argmax(pt, conf), loss, entropy, bins
     )

@@ -30,7 +30,7 @@ class Day:
     fingerprint: dict
 
 
-def day_columns(day: str) -> str:
+def _day_columns(day: str) -> str:
     return (
         f"coalesce(CAST({day} AS VARCHAR), '{NULL_DAY}') AS key, "
         f"CASE WHEN isfinite({day}) THEN date_diff('day', DATE '1970-01-01', {day}) END AS epoch"
@@ -45,7 +45,7 @@ def fingerprints(con, roles: ColumnRoles) -> dict:
     inline = roles.labels is None and roles.label is not None
     label = f"logs.{quote(roles.label)}" if inline else "NULL"
     label_hash = f"hash({', '.join([t, *ident, label])})"
-    sql = f"""SELECT {day_columns("day")}, count(*) AS rows,
+    sql = f"""SELECT {_day_columns("day")}, count(*) AS rows,
     CAST(coalesce(sum(rh), 0) AS VARCHAR) AS rows_hash,
     count(label) AS labels,
     CAST(coalesce(sum(lh) FILTER (WHERE label IS NOT NULL), 0) AS VARCHAR) AS labels_hash
@@ -53,26 +53,26 @@ FROM (SELECT {day(roles, t)} AS day, {row_hash} AS rh, {label} AS label, {label_
       FROM {roles.logs.sql} AS logs)
 GROUP BY day"""
     zone = {"timezone": roles.values["timezone"]}
-    rows = con.execute(sql, {**roles.logs.bound, **bound_in(sql, zone)}).fetchall()
+    rows = con.execute(sql, {**roles.logs.bound, **_bound_in(sql, zone)}).fetchall()
     days = {
         key: Day(key, epoch, {"rows": n, "rows_hash": rh, "labels": nl, "labels_hash": lh})
         for key, epoch, n, rh, nl, lh in rows
     }
     if roles.labels is not None:
         idc = quote(roles.id)
-        sql = f"""SELECT {day_columns("p.day")}, count(*) AS labels,
+        sql = f"""SELECT {_day_columns("p.day")}, count(*) AS labels,
     CAST(sum(hash(l.id, l.label)) AS VARCHAR) AS labels_hash
 FROM (SELECT {day(roles, t)} AS day, logs.{idc} AS id FROM {roles.logs.sql} AS logs) AS p
 JOIN (SELECT labels.{idc} AS id, labels.{quote(roles.label)} AS label
       FROM {roles.labels.sql} AS labels) AS l ON p.id = l.id
 GROUP BY p.day"""
-        bound = {**roles.logs.bound, **roles.labels.bound, **bound_in(sql, zone)}
+        bound = {**roles.logs.bound, **roles.labels.bound, **_bound_in(sql, zone)}
         for key, _, n, lh in con.execute(sql, bound).fetchall():
             days[key].fingerprint.update(labels=n, labels_hash=lh)
     return days
 
 
-def bound_in(sql: str, values: dict) -> dict:
+def _bound_in(sql: str, values: dict) -> dict:
     """`values` the SQL uses (DuckDB refuses unused bound names)."""
     return {k: v for k, v in values.items() if f"${k}" in sql}
 

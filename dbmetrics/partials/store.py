@@ -71,12 +71,12 @@ OLD_TEMP = re.compile(r"\..+\.[0-9]+\.tmp")  # format 1 wrote `.NAME.PID.tmp`
 OWN_ENTRIES = {LOCK, STAGING, PENDING}
 
 
-def is_own_temp(name: str) -> bool:
+def _is_own_temp(name: str) -> bool:
     """A temp file of the manifest or of .pending.json (atomic.atomic_write's names)."""
     return is_temp(name, MANIFEST) or is_temp(name, PENDING)
 
 
-def real_dir(path: Path, create: bool = False) -> Path:
+def _real_dir(path: Path, create: bool = False) -> Path:
     """`path` as a folder of the store: refused if it is a symlink or not a folder."""
     try:
         mode = os.lstat(path).st_mode
@@ -93,7 +93,7 @@ def real_dir(path: Path, create: bool = False) -> Path:
     return path
 
 
-def try_lock(fd: int, wait: bool) -> bool:
+def _try_lock(fd: int, wait: bool) -> bool:
     try:
         fcntl.flock(fd, fcntl.LOCK_EX | (0 if wait else fcntl.LOCK_NB))
         return True
@@ -103,7 +103,7 @@ def try_lock(fd: int, wait: bool) -> bool:
         raise
 
 
-def open_lock(path: Path) -> int:
+def _open_lock(path: Path) -> int:
     flags = os.O_RDWR | os.O_CREAT | os.O_NOFOLLOW | getattr(os, "O_CLOEXEC", 0)
     try:
         return os.open(path, flags, 0o666)
@@ -155,12 +155,12 @@ class Store:
             return
         self.check_folder()
         self.make_root()
-        fd = open_lock(self.root / LOCK)
+        fd = _open_lock(self.root / LOCK)
         try:
-            if not try_lock(fd, wait=False):
+            if not _try_lock(fd, wait=False):
                 if waiting is not None:
                     waiting(f"partials: {self.root} is being updated by another process; waiting")
-                try_lock(fd, wait=True)
+                _try_lock(fd, wait=True)
             self._lock_fd, self._depth = fd, 1
             self.remove_leftovers()
             yield self
@@ -187,7 +187,7 @@ class Store:
         pending = self.pending()
         foreign = []
         for entry in self.root.iterdir():
-            if entry.name in OWN_ENTRIES or is_own_temp(entry.name):
+            if entry.name in OWN_ENTRIES or _is_own_temp(entry.name):
                 continue
             if (
                 entry.name in KIND_NAMES
@@ -220,41 +220,41 @@ class Store:
         listed = {rel for e in manifest["days"].values() for rel in e["files"].values()}
         listed.update(manifest["retired"])
         for rel in self.pending() - listed:
-            unlink_plain(self.root / rel)
+            _unlink_plain(self.root / rel)
         (self.root / PENDING).unlink(missing_ok=True)
         for entry in self.root.iterdir():
-            if is_own_temp(entry.name) or OLD_TEMP.fullmatch(entry.name):
-                unlink_plain(entry)
+            if _is_own_temp(entry.name) or OLD_TEMP.fullmatch(entry.name):
+                _unlink_plain(entry)
         for kind in KIND_NAMES:
             folder = self.root / kind
             if folder.is_dir() and not folder.is_symlink():
                 for entry in folder.iterdir():
                     if OLD_TEMP.fullmatch(entry.name):
-                        unlink_plain(entry)
+                        _unlink_plain(entry)
         staging = self.root / STAGING
         if staging.is_dir() and not staging.is_symlink():
             for folder in staging.iterdir():
-                remove_if_abandoned(folder)
+                _remove_if_abandoned(folder)
 
 
-def unlink_plain(path: Path) -> None:
+def _unlink_plain(path: Path) -> None:
     """Remove a file (a symlink itself, never its target)."""
     with contextlib.suppress(FileNotFoundError, IsADirectoryError, PermissionError):
         if not stat.S_ISDIR(os.lstat(path).st_mode):
             path.unlink()
 
 
-def remove_if_abandoned(folder: Path) -> None:
+def _remove_if_abandoned(folder: Path) -> None:
     """Remove a staging folder whose writer is gone (its lock file is not held)."""
     if folder.is_symlink() or not folder.is_dir():
-        unlink_plain(folder)
+        _unlink_plain(folder)
         return
     try:
         fd = os.open(folder / LOCK, os.O_RDWR | os.O_NOFOLLOW)
     except OSError:
         fd = None
     try:
-        if fd is None or try_lock(fd, wait=False):
+        if fd is None or _try_lock(fd, wait=False):
             shutil.rmtree(folder, ignore_errors=True)
     finally:
         if fd is not None:
@@ -273,10 +273,10 @@ class Publisher:
         self.base = base_generation
         store.check_folder()
         store.make_root()
-        self.folder = real_dir(store.root / STAGING, create=True) / f"w{secrets.token_hex(8)}"
+        self.folder = _real_dir(store.root / STAGING, create=True) / f"w{secrets.token_hex(8)}"
         self.folder.mkdir(mode=0o777)
-        self._lock = open_lock(self.folder / LOCK)
-        try_lock(self._lock, wait=True)
+        self._lock = _open_lock(self.folder / LOCK)
+        _try_lock(self._lock, wait=True)
         self.staged = {}  # (kind, key) -> staged path
 
     def stage(self, kind: str, key: str, table: pa.Table) -> None:
@@ -349,9 +349,9 @@ class Publisher:
             listed = {rel for e in out_days.values() for rel in e["files"].values()}
             before = {rel for e in current["days"].values() for rel in e["files"].values()}
             root = self.store.root
-            write_json(root, PENDING, sorted(moves))
+            _write_json(root, PENDING, sorted(moves))
             for kind in {rel.split("/")[0] for rel in moves}:
-                real_dir(root / kind, create=True)
+                _real_dir(root / kind, create=True)
             for rel, staged in moves.items():
                 replace(staged, root / rel)
             for kind in {rel.split("/")[0] for rel in moves}:
@@ -366,8 +366,8 @@ class Publisher:
                 "retired": sorted(before - listed),
             }
             for rel in set(current["retired"]) - listed:  # before the swap: a kill after
-                unlink_plain(root / rel)  # it leaves them named (retired) for the next one
-            write_json(root, MANIFEST, manifest)
+                _unlink_plain(root / rel)  # it leaves them named (retired) for the next one
+            _write_json(root, MANIFEST, manifest)
             (root / PENDING).unlink(missing_ok=True)
             return generation
 
@@ -391,7 +391,7 @@ def write_day_file(folder: Path, kind: str, table: pa.Table) -> Path:
     return new_file(folder, f"{kind}.", lambda f: pq.write_table(table, f, compression="zstd"))
 
 
-def write_json(root: Path, name: str, data) -> None:
+def _write_json(root: Path, name: str, data) -> None:
     """Replace root/name with `data` as JSON in one step (new file, fsync, rename)."""
     text = json.dumps(data, indent=2, sort_keys=True) + "\n"
     atomic_write(root / name, lambda f: f.write(text.encode()))

@@ -143,7 +143,7 @@ class Update:
             }
             reserved = set(STATE_COLUMNS + CLASS_STATE_COLUMNS + INTERNAL) | {KEY.lower()}
             roles = column_roles(texts, sources, reserved)
-            current = guarded(lambda: fingerprints(con, roles), "reading the logs' days")
+            current = _guarded(lambda: fingerprints(con, roles), "reading the logs' days")
             self.plan(current)
             self.tables = {}
             if self.recompute:
@@ -153,10 +153,10 @@ class Update:
                 values.update(roles.values)  # $classes, $timezone, $unlabelled_value
                 if "labels" in sources:
                     values.update(sources["labels"].bound)
-                tables = guarded(
+                tables = _guarded(
                     lambda: compute_kinds(con, narrowed, values), "computing the state"
                 )
-                self.tables = split_by_day(con, tables, set(self.recompute))
+                self.tables = _split_by_day(con, tables, set(self.recompute))
                 for key in self.recompute:
                     got = pc.sum(self.tables["state"][key].column("rows")).as_py() or 0
                     if got != current[key].fingerprint["rows"]:  # never publish a partial day
@@ -286,7 +286,7 @@ def summarised(keys: list, shown: int = 5) -> str:
     return ", ".join(keys[:shown]) + more
 
 
-def guarded(call, what: str):
+def _guarded(call, what: str):
     try:
         return call()
     except duckdb.Error as exc:
@@ -315,7 +315,7 @@ class session_time_zone:
         self.con.execute(f"SET TimeZone = '{self.before.replace(chr(39), chr(39) * 2)}'")
 
 
-def split_by_day(con, tables: dict, keys: set) -> dict:
+def _split_by_day(con, tables: dict, keys: set) -> dict:
     """{kind: {day key: that day's rows}} for the days in `keys` (each kind's table keeps its
     columns; a day with no rows of a kind gets an empty table)."""
     out = {}

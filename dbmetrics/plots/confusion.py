@@ -58,7 +58,7 @@ def top_confusions(matrix: np.ndarray, top: int = TOP_PAIRS) -> list:
     return sorted(pairs, key=lambda x: (-x[2], x[0], x[1]))[:top]
 
 
-def compact(n: int) -> str:
+def _compact(n: int) -> str:
     """A count in at most four characters: 987, 9.9k, 12k, 1.2M."""
     for size, unit in ((1_000_000, "M"), (1_000, "k")):
         if n >= size:
@@ -100,7 +100,7 @@ def confusion_figure(
         return _bars(matrix, names, heading, top)
     figure = new_figure()
     left, right = figure.subplots(1, 2)
-    _heatmap(left, matrix / max(matrix.max(), 1), matrix, names, compact, "rows")
+    _heatmap(left, matrix / max(matrix.max(), 1), matrix, names, _compact, "rows")
     rates = row_rates(matrix)
     _heatmap(right, rates, rates, names, percent, "% of label")
     left.set_title("counts", fontsize=9)

@@ -19,7 +19,7 @@ from dbmetrics.plots.rows import text
 Z95 = 1.959963984540054  # the 97.5% standard normal quantile
 
 
-def wilson_interval(correct: np.ndarray, rows: np.ndarray, z: float = Z95) -> tuple:
+def _wilson_interval(correct: np.ndarray, rows: np.ndarray, z: float = Z95) -> tuple:
     """(low, high): the Wilson (1927) score interval of the share correct / rows, elementwise,
 
         (p + z^2/2n -+ z sqrt(p (1 - p)/n + z^2/4n^2)) / (1 + z^2/n),  p = correct / n,
@@ -51,7 +51,7 @@ class Pooled:
     @property
     def accuracy_interval(self) -> tuple:
         """(low, high) per bin: the 95% Wilson interval of the bin's accuracy."""
-        return wilson_interval(np.round(self.accuracy * self.rows), self.rows)
+        return _wilson_interval(np.round(self.accuracy * self.rows), self.rows)
 
     @property
     def ece(self) -> float:

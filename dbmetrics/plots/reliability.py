@@ -93,12 +93,12 @@ def _title(calibration: pa.Table, by: str, keys: tuple[str, ...], grain: str = "
     every = "".join(f", every {k}" for k in pooled)
     only = f" ({', '.join(f'{k} {v}' for k, v in fixed.items())})" if fixed else ""
     if min(periods) == max(periods):
-        return f"Reliability per {by}, {one_period(min(periods), grain)}{every}, {bins} bins{only}"
+        return f"Reliability per {by}, {_one_period(min(periods), grain)}{every}, {bins} bins{only}"
     over = f"{grain}s {min(periods)} to {max(periods)}" + every
     return f"Reliability per {by}, {over} pooled, {bins} bins{only}"
 
 
-def one_period(first_day, grain: str) -> str:
+def _one_period(first_day, grain: str) -> str:
     """``week of 2026-03-02``, ``day 2026-03-02`` or ``month 2026-03``."""
     if grain == "month":
         return f"month {first_day:%Y-%m}"

@@ -39,7 +39,7 @@ BUILT_IN = _built_in_folder()
 ENV_VAR = "DBMETRICS_QUERY_PATH"
 
 
-def user_dirs(query_dirs=None) -> list:
+def _user_dirs(query_dirs=None) -> list:
     """Folders passed in, then those in DBMETRICS_QUERY_PATH; each must exist."""
     env = [d for d in os.environ.get(ENV_VAR, "").split(os.pathsep) if d.strip()]
     dirs = []
@@ -83,7 +83,7 @@ def scan_queries(query_dirs=None) -> tuple:
         info = parse_query(path.read_text(encoding="utf-8"), path, "built-in")
         found[info.name] = info
     rollup = found["rollup"]
-    for folder in user_dirs(query_dirs):
+    for folder in _user_dirs(query_dirs):
         if _resolved(folder) == BUILT_IN:
             continue
         for path in sorted(folder.glob("*.sql")):

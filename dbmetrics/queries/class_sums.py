@@ -58,7 +58,7 @@ EXTRA_STATES = {
 }
 
 
-def state_columns(kind: str) -> tuple:
+def _state_columns(kind: str) -> tuple:
     """("day", keys..., additive columns...) of an extra state kind."""
     keys, sums = EXTRA_STATES[kind]
     return ("day", *keys, *sums)
@@ -89,7 +89,7 @@ def label_rank(p: np.ndarray, y: np.ndarray) -> np.ndarray:
     return (p > py).sum(axis=1) + ((p == py) & lower).sum(axis=1)
 
 
-def sparse_sums(codes: np.ndarray, weights: dict, size: int) -> tuple:
+def _sparse_sums(codes: np.ndarray, weights: dict, size: int) -> tuple:
     """(distinct codes, {name: sum of weights per code}, counts): np.bincount when the dense
     range is small, else over the distinct codes only (K x K or K x bins can be large)."""
     if size <= 4 * len(codes) + (1 << 16):
@@ -132,7 +132,7 @@ def batch_sums(batch, sm, st, p, rows, group, first_of_group, keys, kinds, bins,
             "predicted_evaluated_rows": np.bincount(ge * k + pred, minlength=size),
             "true_positive_rows": np.bincount(label_code[correct], minlength=size),
             "sum_class_loss": np.bincount(label_code, st.loss[rows][e], minlength=size),
-            "sum_prob_evaluated": group_sums(pe, ge, n_groups).ravel(),
+            "sum_prob_evaluated": _group_sums(pe, ge, n_groups).ravel(),
         }
         for top in TOP_K:
             added[f"top{top}_rows"] = np.bincount(label_code[rank < top], minlength=size)
@@ -143,7 +143,7 @@ def batch_sums(batch, sm, st, p, rows, group, first_of_group, keys, kinds, bins,
         g, c = np.nonzero(np.arange(k)[None, :] < lengths[:, None])
         prob = pe[g, c]
         codes = (ge[g] * k + c) * bins + calibration_bin(prob, bins)
-        used, sums, counts = sparse_sums(
+        used, sums, counts = _sparse_sums(
             codes,
             {"label_rows": (ye[g] == c).astype(np.float64), "sum_prob": prob},
             n_groups * k * bins,
@@ -161,7 +161,7 @@ def batch_sums(batch, sm, st, p, rows, group, first_of_group, keys, kinds, bins,
             }
         )
     if "confusion_state" in kinds:
-        used, _, counts = sparse_sums((ge * k + ye) * k + pred, {}, n_groups * k * k)
+        used, _, counts = _sparse_sums((ge * k + ye) * k + pred, {}, n_groups * k * k)
         cell, predicted = np.divmod(used, k)
         gg, label = np.divmod(cell, k)
         out["confusion_state"] = pa.table(
@@ -175,14 +175,14 @@ def batch_sums(batch, sm, st, p, rows, group, first_of_group, keys, kinds, bins,
     if "binary_state" in kinds:
         two = np.flatnonzero(sm.lengths[rows][e] == 2)
         out["binary_state"] = (
-            binary_table(sm, rows, e, two, pe, ge, ye, n_groups, is_logits, keyed)
+            _binary_table(sm, rows, e, two, pe, ge, ye, n_groups, is_logits, keyed)
             if len(two)
             else None
         )
     return out, added
 
 
-def group_sums(values: np.ndarray, group: np.ndarray, n_groups: int) -> np.ndarray:
+def _group_sums(values: np.ndarray, group: np.ndarray, n_groups: int) -> np.ndarray:
     """Column sums of `values` (n, k) per group number: (n_groups, k), 0 for empty groups."""
     out = np.zeros((n_groups, values.shape[1]))
     if len(group):
@@ -192,7 +192,7 @@ def group_sums(values: np.ndarray, group: np.ndarray, n_groups: int) -> np.ndarr
     return out
 
 
-def binary_table(sm, rows, e, two, pe, ge, ye, n_groups, is_logits, keyed) -> pa.Table:
+def _binary_table(sm, rows, e, two, pe, ge, ye, n_groups, is_logits, keyed) -> pa.Table:
     """BINARY_STATE rows of the evaluated two-class rows `two` (positions in e)."""
     if is_logits:
         z = sm.values[rows[e[two]]].astype(np.float64)
@@ -202,7 +202,7 @@ def binary_table(sm, rows, e, two, pe, ge, ye, n_groups, is_logits, keyed) -> pa
             s = np.log(pe[two, 1]) - np.log(pe[two, 0])
     y = ye[two]
     p1 = pe[two, 1]
-    used, sums, _ = sparse_sums(
+    used, sums, _ = _sparse_sums(
         ge[two] * SCORE_BINS + score_bin(s),
         {
             "positives": (y == 1).astype(np.float64),
@@ -245,7 +245,7 @@ LABEL_RANK_SQL = (
 )
 
 
-def class_bin_sql(roles: ColumnRoles, evaluated: str) -> str:
+def _class_bin_sql(roles: ColumnRoles, evaluated: str) -> str:
     per_class = (
         f"SELECT day, {roles.keys}, label, unnest(range(len(dist))) AS class,"
         f" unnest(dist) AS prob\nFROM {evaluated}"
@@ -258,13 +258,13 @@ FROM ({per_class})
 GROUP BY ALL"""
 
 
-def confusion_sql(roles: ColumnRoles, evaluated: str) -> str:
+def _confusion_sql(roles: ColumnRoles, evaluated: str) -> str:
     return f"""SELECT day, {roles.keys}, label, predicted::BIGINT AS predicted, count(*) AS rows
 FROM {evaluated}
 GROUP BY ALL"""
 
 
-def binary_sql(roles: ColumnRoles, evaluated: str) -> str:
+def _binary_sql(roles: ColumnRoles, evaluated: str) -> str:
     if KINDS[roles.kind][1] == "softmax":  # logits: the log-odds is z1 - z0
         s = "CAST(scores[2] AS DOUBLE) - CAST(scores[1] AS DOUBLE)"
     else:
@@ -284,7 +284,7 @@ GROUP BY ALL"""
 
 
 EXTRA_SQL = {
-    "class_bin_state": class_bin_sql,
-    "confusion_state": confusion_sql,
-    "binary_state": binary_sql,
+    "class_bin_state": _class_bin_sql,
+    "confusion_state": _confusion_sql,
+    "binary_state": _binary_sql,
 }

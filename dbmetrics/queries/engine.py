@@ -49,7 +49,7 @@ KERNELS = {
 DISTRIBUTIONS = {"logit_row_stats": softmax, "prob_row_stats": as_distribution}
 
 
-def sliced(reader):
+def _sliced(reader):
     """The reader's batches cut to about BATCH_VALUES scores each: numpy's temporaries then
     stay in cache whatever K is (16384 rows at K = 10, 2048 at K = 1000)."""
     for batch in reader:
@@ -60,7 +60,7 @@ def sliced(reader):
             yield batch.slice(start, step)
 
 
-def with_row_stats(batch: pa.RecordBatch, st) -> pa.RecordBatch:
+def _with_row_stats(batch: pa.RecordBatch, st) -> pa.RecordBatch:
     """The batch with `scores` replaced by the `stats` struct the UDF would return."""
     stats = row_stats_struct(st)
     keep = [i for i, name in enumerate(batch.schema.names) if name != "scores"]
@@ -70,7 +70,7 @@ def with_row_stats(batch: pa.RecordBatch, st) -> pa.RecordBatch:
     )
 
 
-def group_ids(columns: list) -> np.ndarray:
+def _group_ids(columns: list) -> np.ndarray:
     """Dense group number (0 .. groups - 1) per row for the combination of the key columns'
     values (NULL is a value); renumbered after each column, so it never overflows."""
     group = np.zeros(len(columns[0]), np.int64)
@@ -81,7 +81,7 @@ def group_ids(columns: list) -> np.ndarray:
     return group
 
 
-def class_partials(
+def _class_partials(
     batch: pa.RecordBatch,
     sm,
     st,
@@ -102,7 +102,7 @@ def class_partials(
     p = distribution(sm.values[rows].astype(np.float64))
     k = p.shape[1]
     key_columns = [batch.column(name).take(pa.array(rows)) for name in ["day", *keys]]
-    group = group_ids(key_columns)
+    group = _group_ids(key_columns)
     order = np.argsort(group, kind="stable")
     starts = np.flatnonzero(np.r_[True, np.diff(group[order]) != 0])
     n_groups = len(starts)
@@ -133,7 +133,7 @@ def class_partials(
     return out
 
 
-def compute_states(
+def _compute_states(
     con: duckdb.DuckDBPyConnection,
     roles: ColumnRoles,
     values: dict,
@@ -146,7 +146,7 @@ def compute_states(
     return states["state"], states.get("class_state")
 
 
-def class_kinds(classes) -> tuple:
+def _class_kinds(classes) -> tuple:
     """The class-level state kinds asked for: True = every one, False = none, or a tuple."""
     if classes is True:
         return CLASS_KINDS
@@ -164,32 +164,32 @@ def partial_states(
     class-level kinds `classes` names: True for all of CLASS_KINDS), as Arrow tables: the
     `predictions` rows streamed through `states_of_rows`, or, when that stream fails, the
     UDF route over the same SQL."""
-    kinds = class_kinds(classes)
+    kinds = _class_kinds(classes)
     source_sql = predictions(roles, window)
     batch_rows = BATCH_ROWS if kinds or not state_jit.available() else JIT_BATCH_ROWS
     reader = con.sql(source_sql, params=bound_values(source_sql, values)).to_arrow_reader(
         batch_rows
     )
     try:
-        return states_of_rows(con, roles, reader, values, kinds)
+        return _states_of_rows(con, roles, reader, values, kinds)
     except (duckdb.Error, pa.ArrowException, OSError):
         # An error DuckDB raised while producing the rows (a corrupt file, a bad cast) reaches
         # us wrapped by the Arrow stream (as an OSError when read from Python), without its context: reading the rows again inside
         # DuckDB alone raises it as DuckDB words it. Any other error surfaces unchanged.
-        raise_source_error(con, source_sql, values)
+        _raise_source_error(con, source_sql, values)
         raise
     finally:
         reader.close()
 
 
-def raise_source_error(con, source_sql: str, values: dict) -> None:
+def _raise_source_error(con, source_sql: str, values: dict) -> None:
     """Evaluate every column of the `predictions` rows in DuckDB (hashing them, so that no
     column is pruned), raising the error that reading them gives, if any."""
     sql = f"SELECT sum(hash(COLUMNS(*))) FROM {nested(source_sql)}"
     con.sql(sql, params=bound_values(sql, values)).fetchall()
 
 
-def states_of_rows(
+def _states_of_rows(
     con: duckdb.DuckDBPyConnection,
     roles: ColumnRoles,
     rows: pa.RecordBatchReader,
@@ -201,9 +201,9 @@ def states_of_rows(
     class-level kinds `classes` names} summed per day x keys. Memory stays one batch plus
     the small per-batch class sums. `con` only runs the summing SQL (it may be busy
     streaming `rows`: a cursor of it is used)."""
-    kinds = class_kinds(classes)
+    kinds = _class_kinds(classes)
     if not kinds and state_jit.available():
-        return {"state": jit_state(con, roles, sliced(rows), rows.schema, int(values["bins"]))}
+        return {"state": jit_state(con, roles, _sliced(rows), rows.schema, int(values["bins"]))}
     kernel_name = KINDS[roles.kind][0]
     kernel, pad = KERNELS[kernel_name]
     distribution = DISTRIBUTIONS[kernel_name]
@@ -213,17 +213,17 @@ def states_of_rows(
     per_batch = {kind: [] for kind in kinds}
 
     def batches():
-        for batch in sliced(rows):
+        for batch in _sliced(rows):
             sm = score_matrix(batch.column("scores"), pad, dtype=None)
             y, y_present = integer_column(batch.column("label"))
             st = kernel(sm.values, sm.present, sm.lengths, y, y_present, bins)
             if kinds:
-                parts = class_partials(
+                parts = _class_partials(
                     batch, sm, st, distribution, keys, kinds, bins, distribution is softmax
                 )
                 for kind in kinds:
                     per_batch[kind].append(parts.get(kind))
-            yield with_row_stats(batch, st)
+            yield _with_row_stats(batch, st)
 
     cursor = con.cursor()
     try:
@@ -233,13 +233,13 @@ def states_of_rows(
             "state": cursor.sql(state_sql, params=bound_values(state_sql, values)).to_arrow_table()
         }
         for kind in kinds:
-            states[kind] = summed_parts(cursor, kind, per_batch[kind], roles, rows.schema)
+            states[kind] = _summed_parts(cursor, kind, per_batch[kind], roles, rows.schema)
         return states
     finally:
         cursor.close()
 
 
-def kind_sql(kind: str, roles: ColumnRoles, window: bool = False) -> str:
+def _kind_sql(kind: str, roles: ColumnRoles, window: bool = False) -> str:
     """The SELECT computing state `kind` with one UDF call per row."""
     if kind == "state":
         return state(roles, window)
@@ -248,16 +248,16 @@ def kind_sql(kind: str, roles: ColumnRoles, window: bool = False) -> str:
     return extra_state(kind, roles, window)
 
 
-def kind_columns(kind: str) -> tuple:
+def _kind_columns(kind: str) -> tuple:
     """(own key columns, additive columns) of a class-level state kind."""
     if kind == "class_state":
         return ("class",), CLASS_STATE_COLUMNS[2:]
     return EXTRA_STATES[kind]
 
 
-def summed_parts(cursor, kind: str, parts: list, roles: ColumnRoles, schema: pa.Schema):
+def _summed_parts(cursor, kind: str, parts: list, roles: ColumnRoles, schema: pa.Schema):
     """The per-batch sums of `kind` added up per day x keys x its own keys."""
-    own, sums = kind_columns(kind)
+    own, sums = _kind_columns(kind)
     parts = [t for t in parts if t is not None]
     if not parts:  # no row for this state at all: no rows, with the right columns
         parts = [

@@ -47,11 +47,11 @@ def run_query(
         params = merge(name, declared, settings, params)
     try:
         r = rendered(
-            con, name, params, query_dirs, materialize=True, inspect=check_scores, periods=periods
+            con, name, params, query_dirs, materialize=True, inspect=_check_scores, periods=periods
         )
         table = con.sql(r.sql, params=r.bound).to_arrow_table()
     except duckdb.Error as exc:
-        raise DbmetricsError(f"query `{name}` failed: {explain(con, params, exc)}") from exc
+        raise DbmetricsError(f"query `{name}` failed: {_explain(con, params, exc)}") from exc
     finally:
         registered = {row[0] for row in con.sql("SELECT view_name FROM duckdb_views()").fetchall()}
         for view in set(VIEWS.values()) & registered:
@@ -70,7 +70,7 @@ def run_query(
     return table
 
 
-def check_scores(con, roles: ColumnRoles) -> None:
+def _check_scores(con, roles: ColumnRoles) -> None:
     """From a sample of the scores: an error when `classes` names another number of classes
     than K, a warning when the scores contradict scores_kind."""
     logs = roles.logs
@@ -86,7 +86,7 @@ def check_scores(con, roles: ColumnRoles) -> None:
         warn(message)
 
 
-def explain(con, params: dict, exc: duckdb.Error) -> str:
+def _explain(con, params: dict, exc: duckdb.Error) -> str:
     """DuckDB's first line, and for a Parquet log that cannot be decoded, which file."""
     text = "".join(c for c in first_line(exc) if c.isprintable())
     if isinstance(exc, duckdb.OutOfMemoryException):  # no file is to blame

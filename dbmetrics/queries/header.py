@@ -122,7 +122,7 @@ def parse_query(text: str, path: Path, origin: str) -> QueryInfo:
             break
         header.append(line)
     body = "\n".join(lines[len(header) :]).strip()
-    entries = header_entries(header, path)
+    entries = _header_entries(header, path)
     fields, params, outputs, notes = {}, [], [], []
     for key, value in entries:
         if key.startswith("param "):
@@ -154,7 +154,7 @@ def parse_query(text: str, path: Path, origin: str) -> QueryInfo:
             f"{path}: header name `{name}` must be lower-case letters, digits "
             f"and _ and match the file name `{path.stem}`"
         )
-    params = with_included(params)
+    params = _with_included(params)
     names = [p.name for p in params]
     if len(set(names)) != len(names):
         raise DbmetricsError(f"{path}: a parameter is declared twice: {', '.join(names)}")
@@ -170,8 +170,8 @@ def parse_query(text: str, path: Path, origin: str) -> QueryInfo:
         body,
         tuple(c.strip() for c in fields.get("show", "").split(",") if c.strip()),
     )
-    check_body(info)
-    check_show(info)
+    _check_body(info)
+    _check_show(info)
     return info
 
 
@@ -189,7 +189,7 @@ def column_roles_info(name: str, summary: str) -> QueryInfo:
     )
 
 
-def with_included(params: list) -> list:
+def _with_included(params: list) -> list:
     """`params` with each include marker (None) replaced by the column-role parameters the
     query does not declare itself."""
     own = {p.name for p in params if p is not None}
@@ -199,7 +199,7 @@ def with_included(params: list) -> list:
     return out
 
 
-def header_entries(header: list, path: Path) -> list:
+def _header_entries(header: list, path: Path) -> list:
     """(key, value) per header entry; indented lines continue the entry above."""
     entries = []  # (key, [value, continuation, ...]): joined once at the end
     for line in header:
@@ -226,7 +226,7 @@ def header_entries(header: list, path: Path) -> list:
 
 def parse_param(text: str, path: Path) -> Param:
     """`NAME (TYPE[, default VALUE | required]): meaning` -> Param."""
-    parts = split_param(text.strip())
+    parts = _split_param(text.strip())
     if parts is None:
         shown = text if len(text) <= 200 else f"{text[:200]}..."
         raise DbmetricsError(
@@ -289,7 +289,7 @@ def parse_param(text: str, path: Path) -> Param:
     )
 
 
-def check_show(info: QueryInfo) -> None:
+def _check_show(info: QueryInfo) -> None:
     """Every `-- show:` name is a declared output column or a column(s) parameter."""
     known = {c for c, _ in info.outputs} | {
         p.name for p in info.params if p.kind in ("column", "columns")
@@ -302,7 +302,7 @@ def check_show(info: QueryInfo) -> None:
         )
 
 
-def split_param(text: str) -> tuple | None:
+def _split_param(text: str) -> tuple | None:
     """(name, spec, meaning) of `param NAME (SPEC): meaning`, where SPEC holds at most one
     parenthesised group; None if `text` is not so shaped. One pass over the text (a regular
     expression with two starred spans around the group backtracks quadratically)."""
@@ -325,7 +325,7 @@ def split_param(text: str) -> tuple | None:
     return match.group(1), text[match.end() : i - 1], meaning.group(1)
 
 
-def check_body(info: QueryInfo) -> None:
+def _check_body(info: QueryInfo) -> None:
     """Every `$name` and `{{name}}` in the body is declared; fragments need the column roles."""
     declared = {p.name: p for p in info.params}
     for name in BOUND.findall(info.body):

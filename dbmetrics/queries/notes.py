@@ -69,15 +69,15 @@ def result_notes(name: str, texts: dict, table: pa.Table) -> list:
         if labelled == 0:
             notes.append(no_labels(texts, rows))
     if table.num_rows == 0 and "evaluated_rows" in cols and "labelled_rows" not in cols:
-        notes.append(empty_evaluation(name, texts))
+        notes.append(_empty_evaluation(name, texts))
     if name == "drift" or {"in_reference", "ref_scored_rows"} <= cols:
-        notes += drift_notes(texts, table)
+        notes += _drift_notes(texts, table)
     if {"metric", "form", "version_a", "version_b"} <= cols:
-        notes += comparison_notes(name, texts, table)
+        notes += _comparison_notes(name, texts, table)
     return notes
 
 
-def comparison_notes(name: str, texts: dict, table: pa.Table) -> list:
+def _comparison_notes(name: str, texts: dict, table: pa.Table) -> list:
     """version_gap: nothing compared, and the unpaired-only partials store."""
     notes = []
     if texts.get("partials"):
@@ -98,7 +98,7 @@ def comparison_notes(name: str, texts: dict, table: pa.Table) -> list:
     return notes
 
 
-def empty_evaluation(name: str, texts: dict) -> str:
+def _empty_evaluation(name: str, texts: dict) -> str:
     """calibration / recalibration without any evaluated row."""
     if not texts.get("label_col"):
         return f"{name}: label_col is empty, so there is nothing to evaluate: {name} needs labels"
@@ -108,7 +108,7 @@ def empty_evaluation(name: str, texts: dict) -> str:
     )
 
 
-def drift_notes(texts: dict, table: pa.Table) -> list:
+def _drift_notes(texts: dict, table: pa.Table) -> list:
     if table.num_rows == 0 or "in_reference" not in table.column_names:
         return []
     window = f"ref_start={texts.get('ref_start') or 'first day'}, ref_end={texts.get('ref_end') or 'end of the 4th period'}"

@@ -94,7 +94,7 @@ def keep(table: pa.Table, chosen: Periods, grain: str | None, query: str) -> pa.
     days = pc.cast(table["period"], pa.date32())
     lo, hi = chosen.since, chosen.until
     if chosen.last is not None:
-        anchor = start_of(hi, grain) if hi is not None else pc.max(days).as_py()
+        anchor = _start_of(hi, grain) if hi is not None else pc.max(days).as_py()
         if anchor is None:  # an empty result
             return table
         first = back(anchor, chosen.last - 1, grain)
@@ -119,10 +119,10 @@ def scan_window(query: str, chosen: Periods | None, grain: str | None) -> tuple 
         return None
     first = after = None
     if chosen.since is not None:
-        first = start_of(chosen.since, grain)
+        first = _start_of(chosen.since, grain)
         first = first if first == chosen.since else back(first, -1, grain)
     if chosen.until is not None:
-        last = start_of(chosen.until, grain)
+        last = _start_of(chosen.until, grain)
         after = back(last, -1, grain)
         if chosen.last is not None:
             earliest = back(last, chosen.last - 1, grain)
@@ -149,11 +149,11 @@ def within(roles: ColumnRoles, first: dt.date | None, after: dt.date | None) -> 
     return replace(roles, logs=logs)
 
 
-def start_of(day: dt.date, grain: str) -> dt.date:
+def _start_of(day: dt.date, grain: str) -> dt.date:
     """The first day of the period holding `day`; weeks start on Monday (DuckDB's
     date_trunc('week'), ISO 8601).
 
-    >>> start_of(dt.date(2026, 3, 4), "week"), start_of(dt.date(2026, 3, 4), "month")
+    >>> _start_of(dt.date(2026, 3, 4), "week"), _start_of(dt.date(2026, 3, 4), "month")
     (datetime.date(2026, 3, 2), datetime.date(2026, 3, 1))
     """
     if grain == "week":

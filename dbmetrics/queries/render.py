@@ -75,7 +75,7 @@ def rendered(
     periods: the periods the caller keeps; a query whose periods are independent reads only
     the logs' rows that can fall in them (periods.scan_window)."""
     info = get_query(name, query_dirs)
-    included = list(included_queries(info, query_dirs).values())
+    included = list(_included_queries(info, query_dirs).values())
     for inner in included:
         missing = [p.name for p in inner.params if p.name not in {q.name for q in info.params}]
         if missing:
@@ -83,7 +83,7 @@ def rendered(
                 f"{info.path}: includes query `{inner.name}`, whose parameters "
                 f"{', '.join(missing)} it does not declare"
             )
-    return render_info(
+    return _render_info(
         con,
         info,
         params,
@@ -95,7 +95,7 @@ def rendered(
     )
 
 
-def included_queries(info: QueryInfo, query_dirs=None, outer: tuple = ()) -> dict:
+def _included_queries(info: QueryInfo, query_dirs=None, outer: tuple = ()) -> dict:
     """{name: QueryInfo} of every query `info` includes with {{query:NAME}}, directly or
     through another included query, innermost last (so they are filled in reverse)."""
     found = {}
@@ -106,11 +106,11 @@ def included_queries(info: QueryInfo, query_dirs=None, outer: tuple = ()) -> dic
         if inner.name in (*outer, info.name):
             raise DbmetricsError(f"{info.path}: includes query `{inner.name}` within itself")
         found[inner.name] = inner
-        found.update(included_queries(inner, query_dirs, (*outer, info.name)))
+        found.update(_included_queries(inner, query_dirs, (*outer, info.name)))
     return found
 
 
-def render_info(
+def _render_info(
     con,
     info: QueryInfo,
     params: dict,
@@ -142,7 +142,7 @@ def render_info(
         filled["rows_by_id"] = pairs.no_rows(filled)
         filled.update(
             {
-                p.name: checked_names(p, texts[p.name])
+                p.name: _checked_names(p, texts[p.name])
                 for p in info.params
                 if p.name in COLUMN_MAP and p.kind in ("column", "columns") and p.name not in filled
             }
@@ -190,7 +190,7 @@ def render_info(
             filled[p.name] = sources[p.name].sql
             values.update(sources[p.name].bound)
         elif p.kind in ("column", "columns") and (p.name not in filled or p.sources):
-            filled[p.name] = checked_columns(p, texts[p.name], sources)
+            filled[p.name] = _checked_columns(p, texts[p.name], sources)
     for key, inner in reversed(included.items()):  # innermost first
         filled[key] = PLACEHOLDER.sub(
             lambda m, inner=inner: fill(m.group(1), filled, inner), inner.body
@@ -199,12 +199,12 @@ def render_info(
     return Rendered(info, sql, bound_values(sql, values), texts, roles)
 
 
-def checked_names(p, text) -> str:
+def _checked_names(p, text) -> str:
     """Quoted column name(s) not checked against a schema (unused by a partials rollup)."""
     return ", ".join(quote(name) for name in split_names(text))
 
 
-def checked_columns(p, text, sources) -> str:
+def _checked_columns(p, text, sources) -> str:
     """Quoted column name(s), each present in every source the type names (default logs)."""
     names = split_names(text)
     if p.kind == "column" and len(names) > 1:

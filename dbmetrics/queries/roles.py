@@ -98,15 +98,15 @@ def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
 
     `timezone` is taken as given: check it first with `time_zone(con, text)`."""
     logs, labels = sources["logs"], sources.get("labels")
-    all_found(texts, logs, labels)
+    _all_found(texts, logs, labels)
     time = logs.column(texts["time_col"], "time_col")
     scores = logs.column(texts["scores_col"], "scores_col")
     version = logs.column(texts["version_col"], "version_col")
     segments = tuple(logs.column(c, "segment_cols") for c in split_names(texts["segment_cols"]))
     kind = texts["scores_kind"]
-    check_type(logs, time, "time_col", TIME_TYPES, "a DATE or TIMESTAMP column")
+    _check_type(logs, time, "time_col", TIME_TYPES, "a DATE or TIMESTAMP column")
     if is_binary(kind):
-        check_type(
+        _check_type(
             logs,
             scores,
             "scores_col",
@@ -133,7 +133,7 @@ def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
         id_col = logs.column(texts["id_col"], "id_col")
         label_id = labels.column(texts["id_col"], "id_col")
         a, b = logs.type_of(id_col), labels.type_of(label_id)
-        if is_number(a) != is_number(b):
+        if _is_number(a) != _is_number(b):
             raise DbmetricsError(
                 f"id_col: `{id_col}` is {a} in logs but `{label_id}` is {b} in labels, so no "
                 "id can match; store both as numbers or both as text (or cast one in a view)"
@@ -145,14 +145,14 @@ def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
         )
     label = label_source.column(texts["label_col"], "label_col") if texts["label_col"] else None
     label_type = label_source.type_of(label) if label is not None else None
-    if label is not None and not texts["classes"] and not is_number(label_type):
+    if label is not None and not texts["classes"] and not _is_number(label_type):
         raise DbmetricsError(
             f"label_col: column `{label}` is {label_type}; "
             "labels must be 0-based class indices (integers, or whole numbers in a "
             "FLOAT/DOUBLE column), or names with classes=NAME0,NAME1,... in class-index order"
         )
     unlabelled = texts.get("unlabelled_value")
-    if unlabelled is not None and label is not None and is_number(label_type):
+    if unlabelled is not None and label is not None and _is_number(label_type):
         try:
             if not math.isfinite(float(unlabelled)):
                 raise ValueError
@@ -188,15 +188,15 @@ def column_roles(texts: dict, sources: dict, reserved: set) -> ColumnRoles:
 # role -> (where it is looked up, the column types that could play it)
 CANDIDATES = {
     "time_col": ("logs", lambda t: t.startswith(TIME_TYPES)),
-    "scores_col": ("logs", lambda t: t.endswith("]") or is_number(t)),
-    "version_col": ("logs", lambda t: is_key(t)),
-    "segment_cols": ("logs", lambda t: is_key(t)),
+    "scores_col": ("logs", lambda t: t.endswith("]") or _is_number(t)),
+    "version_col": ("logs", lambda t: _is_key(t)),
+    "segment_cols": ("logs", lambda t: _is_key(t)),
     "id_col": ("logs", lambda t: not t.endswith("]")),
-    "label_col": ("labels", lambda t: is_key(t) or is_number(t)),
+    "label_col": ("labels", lambda t: _is_key(t) or _is_number(t)),
 }
 
 
-def all_found(texts: dict, logs: Source, labels: Source | None) -> None:
+def _all_found(texts: dict, logs: Source, labels: Source | None) -> None:
     """Every column a role names exists; else one error naming every missing role with the
     columns of a fitting type that could play it (one missing role: the usual message)."""
     missing = []
@@ -243,12 +243,12 @@ def key_fragments(version: str, segments) -> dict:
     }
 
 
-def is_key(kind: str) -> bool:
+def _is_key(kind: str) -> bool:
     """Text or a whole number: a type that can name a version, a segment or a class."""
     return not kind.endswith("]") and kind.startswith(("VARCHAR", *INTEGER_TYPES))
 
 
-def is_number(kind: str) -> bool:
+def _is_number(kind: str) -> bool:
     return not kind.endswith("]") and kind.startswith(NUMERIC_TYPES)
 
 
@@ -281,7 +281,7 @@ def day_start(roles: ColumnRoles, expr: str) -> str:
     return f"CAST({expr} AS TIMESTAMP)"
 
 
-def check_type(source: Source, col: str, role: str, prefixes: tuple, wanted: str) -> None:
+def _check_type(source: Source, col: str, role: str, prefixes: tuple, wanted: str) -> None:
     kind = source.type_of(col)
     if kind.endswith("]") or not kind.startswith(prefixes):
         raise DbmetricsError(f"{role}: column `{col}` is {source.type_of(col)}; expected {wanted}")
@@ -301,7 +301,7 @@ def class_index(roles: ColumnRoles, expr: str) -> str:
     if roles.unlabelled is not None:
         missing += (
             f" OR CAST({expr} AS VARCHAR) = $unlabelled_value"
-            if roles.classes or not is_number(kind)
+            if roles.classes or not _is_number(kind)
             else f" OR {number} = CAST($unlabelled_value AS DOUBLE)"
         )
     if roles.classes:

@@ -60,7 +60,7 @@ def open_source(con: duckdb.DuckDBPyConnection, param: str, text: str) -> Source
     no partition key is also a column of the files; such keys are kept in `shadowed` and
     the file column is read.
     """
-    table = find_table(con, text)
+    table = _find_table(con, text)
     if table is not None:
         return described(con, param, table, {}, text)
     path = text
@@ -70,7 +70,7 @@ def open_source(con: duckdb.DuckDBPyConnection, param: str, text: str) -> Source
         literal = given.exists()
     except (RuntimeError, ValueError, OSError) as exc:
         raise DbmetricsError(f"{param}: `{text}` is not a usable path ({exc})") from None
-    root = given if is_folder else given.parent if literal else glob_root(text)
+    root = given if is_folder else given.parent if literal else _glob_root(text)
     if literal:
         path = glob_escape(str(given))
     if is_folder:
@@ -78,7 +78,7 @@ def open_source(con: duckdb.DuckDBPyConnection, param: str, text: str) -> Source
     if path.lower().endswith(CSV_SUFFIXES):
         return described(con, param, f"read_csv(${param}, auto_detect = true)", {param: path}, text)
     plain = f"read_parquet(${param}, union_by_name = true, hive_partitioning = false)"
-    keys = hive_keys(con, param, path, root)
+    keys = _hive_keys(con, param, path, root)
     if not keys:
         return described(con, param, plain, {param: path}, text)
     files = described(con, param, plain, {param: path}, text)
@@ -110,7 +110,7 @@ def glob_escape(path: str) -> str:
     return "".join(f"[{c}]" if c in GLOB_CHARS else c for c in path)
 
 
-def glob_root(pattern: str) -> Path:
+def _glob_root(pattern: str) -> Path:
     """The folder a glob pattern starts from: its path up to the first glob character."""
     head = pattern
     for c in GLOB_CHARS:
@@ -118,7 +118,7 @@ def glob_root(pattern: str) -> Path:
     return Path(head).expanduser() if head.endswith("/") else Path(head).expanduser().parent
 
 
-def hive_keys(con, param: str, pattern: str, root: Path) -> tuple:
+def _hive_keys(con, param: str, pattern: str, root: Path) -> tuple:
     """The partition keys when every file lies below `root` in key=value folders only, the
     same keys in the same order for every file; else ()."""
     try:
@@ -137,7 +137,7 @@ def hive_keys(con, param: str, pattern: str, root: Path) -> tuple:
     return layouts.pop() if len(layouts) == 1 else ()
 
 
-def find_table(con, text: str) -> str | None:
+def _find_table(con, text: str) -> str | None:
     """The quoted name of the table or view `text` (name or schema.name), if there is one."""
     rows = con.execute(
         "SELECT schema_name, table_name FROM duckdb_tables() "
@@ -175,7 +175,7 @@ def is_parquet(source: Source) -> bool:
     return bool(source.bound) and source.sql.startswith("read_parquet(")
 
 
-def file_list(con, source: Source) -> list:
+def _file_list(con, source: Source) -> list:
     param = next(iter(source.bound))
     return [
         row[0]
@@ -187,7 +187,7 @@ def file_list(con, source: Source) -> list:
 
 def unreadable(con, source: Source) -> tuple | None:
     """(file, error) for the first file whose columns cannot all be decoded, else None."""
-    for file in file_list(con, source):
+    for file in _file_list(con, source):
         try:
             con.execute(
                 "SELECT count(COLUMNS(*)) FROM read_parquet(?)", [glob_escape(file)]

@@ -76,7 +76,7 @@ def column_type(name: str) -> pa.DataType:
     return pa.float64() if name.startswith("sum_") else pa.int64()
 
 
-def key_type(t: pa.DataType) -> pa.DataType:
+def _key_type(t: pa.DataType) -> pa.DataType:
     """A version or segment column's type without the engine's Arrow flavour (large or view
     strings and binaries, dictionary encoding), so equal values have equal types."""
     if pa.types.is_dictionary(t):
@@ -98,7 +98,7 @@ def declared(kind: str, schema: pa.Schema, without: tuple = ()) -> pa.Schema:
     return pa.schema(
         [
             pa.field("day", column_type("day")),
-            *(pa.field(f.name, key_type(f.type)) for f in keys),
+            *(pa.field(f.name, _key_type(f.type)) for f in keys),
             *(pa.field(c, column_type(c)) for c in (*k.keys, *k.columns) if c not in without),
         ]
     )

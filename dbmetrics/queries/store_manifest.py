@@ -45,7 +45,7 @@ DAY_FILE = re.compile(r"([a-z_]+)/([0-9A-Za-z-]+)\.([0-9]+)\.parquet")
 FINGERPRINT = ("rows", "rows_hash", "labels", "labels_hash")
 
 
-def file_stem(key: str) -> str:
+def _file_stem(key: str) -> str:
     """The day key as a file-name stem: `0044-03-15 (BC)` -> `0044-03-15BC`."""
     return re.sub(r"[^0-9A-Za-z-]", "", key)
 
@@ -82,7 +82,7 @@ def sort_key(key: str) -> tuple:
 
 def day_file(kind: str, key: str, generation: int) -> str:
     """Path of a day's file of `kind`, relative to the store root."""
-    return f"{kind}/{file_stem(key)}.{generation}.parquet"
+    return f"{kind}/{_file_stem(key)}.{generation}.parquet"
 
 
 def validated(data, where: str) -> dict:
@@ -117,7 +117,7 @@ def validated(data, where: str) -> dict:
     for key, entry in days.items():
         if not is_day_key(key):
             bad(f"`{key}` is not a day key (YYYY-MM-DD or null)")
-        out_days[key] = day_entry(entry, key, version, bad)
+        out_days[key] = _day_entry(entry, key, version, bad)
     stale = data.get("stale", {})
     if not isinstance(stale, dict) or not all(isinstance(v, str) for v in stale.values()):
         bad("`stale` must map day keys to reasons")
@@ -140,7 +140,7 @@ def validated(data, where: str) -> dict:
     }
 
 
-def day_entry(entry, key: str, version: str, bad) -> dict:
+def _day_entry(entry, key: str, version: str, bad) -> dict:
     if version == "1":  # {"state": path, "class_state": path}
         files, fingerprint = entry, None
     else:

@@ -43,7 +43,7 @@ def summed(kind: StateKind, keys: str, param: str, lacking: dict | None = None) 
     return f"SELECT day, {keys}, {own},\n    {sums}\nFROM {source}\nGROUP BY ALL"
 
 
-def check_roles(recorded: dict, logs, texts: dict, given: dict, root) -> None:
+def _check_roles(recorded: dict, logs, texts: dict, given: dict, root) -> None:
     """Refuse a column-role parameter the query gives that the store was not built with."""
     wanted = {k: texts[k] for k in FIXED if k in given}
     if "timezone" in given:
@@ -70,7 +70,7 @@ def store_fragments(texts: dict, given: dict | None = None) -> tuple:
             "build it with `dbmetrics partials update`"
         )
     recorded = manifest["column_roles"]
-    check_roles(recorded, manifest["logs"], texts, given or {}, root)
+    _check_roles(recorded, manifest["logs"], texts, given or {}, root)
     stored_keys = [recorded["version_col"], *split_names(recorded["segment_cols"])]
     version = texts["version_col"]
     segments = split_names(texts["segment_cols"])

@@ -87,13 +87,13 @@ def convert(p: Param, text: str | None):
     if p.kind == "integer":
         if not INTEGER.fullmatch(text):
             raise DbmetricsError(f"parameter `{p.name}` expects a whole number; got `{text}`")
-        return in_range(p, int(text))
+        return _in_range(p, int(text))
     if p.kind == "number":
         if not NUMBER.fullmatch(text) or not math.isfinite(float(text)):
             raise DbmetricsError(
                 f"parameter `{p.name}` expects a number such as 0.25; got `{text}`"
             )
-        return in_range(p, float(text))
+        return _in_range(p, float(text))
     if p.kind == "date":
         try:
             return dt.date.fromisoformat(text)
@@ -108,7 +108,7 @@ def convert(p: Param, text: str | None):
     return text
 
 
-def in_range(p: Param, value):
+def _in_range(p: Param, value):
     """`value` if it lies within p's bounds; else an error naming them (an interval such as
     (0, 1) when an end is excluded)."""
     below = p.low is not None and (value <= p.low if p.low_open else value < p.low)

@@ -53,12 +53,12 @@ RESERVED = set(STATE_COLUMNS + CLASS_STATE_COLUMNS + INTERNAL) | {
 WRITE_FROM = ("auto", "driver", "workers")
 
 
-def backticked(name: str) -> str:
+def _backticked(name: str) -> str:
     """A Spark column reference that takes `name` literally (dots, spaces, backticks)."""
     return "`" + name.replace("`", "``") + "`"
 
 
-def read_source(spark, param: str, value):
+def _read_source(spark, param: str, value):
     """(DataFrame, text): a DataFrame as given, else the table or the path the session reads."""
     from pyspark.errors import AnalysisException
     from pyspark.sql import DataFrame
@@ -82,7 +82,7 @@ def read_source(spark, param: str, value):
         ) from None
 
 
-def arrow_schema(df, param: str) -> pa.Schema:
+def _arrow_schema(df, param: str) -> pa.Schema:
     from pyspark.sql.pandas.types import to_arrow_schema
 
     try:
@@ -91,7 +91,7 @@ def arrow_schema(df, param: str) -> pa.Schema:
         raise DbmetricsError(f"{param}: a column type cannot pass to Arrow ({exc})") from None
 
 
-def checked_roles(texts: dict, schemas: dict) -> tuple:
+def _checked_roles(texts: dict, schemas: dict) -> tuple:
     """(roles, sources) checked with the DuckDB update's own code and messages, against empty
     tables of the sources' Arrow schemas (DuckDB names their types as it would the logs');
     the time zone is checked as the DuckDB update checks it."""
@@ -109,7 +109,7 @@ def checked_roles(texts: dict, schemas: dict) -> tuple:
         con.close()
 
 
-def union_schema(logs: pa.Schema, keys: list) -> pa.Schema:
+def _union_schema(logs: pa.Schema, keys: list) -> pa.Schema:
     """The states pass output: KIND, day, keys (the log's Arrow types), every kind's keys and
     columns in their declared types."""
     fields = {KIND: pa.string(), "day": column_type("day")}
@@ -142,28 +142,28 @@ class SparkUpdate(Update):
                     value = recorded["labels"]
                 else:
                     continue
-            frames[name], named[name] = read_source(spark, name, value)
+            frames[name], named[name] = _read_source(spark, name, value)
         texts, declared = column_roles_texts({**params, **named}, recorded)
         self.texts = texts
-        schemas = {name: arrow_schema(df, name) for name, df in frames.items()}
-        roles, sources = checked_roles(texts, schemas)
+        schemas = {name: _arrow_schema(df, name) for name, df in frames.items()}
+        roles, sources = _checked_roles(texts, schemas)
         keys = [roles.version, *roles.segments]
         wanted = [roles.time, roles.scores, *keys]
         wanted += [roles.id] if roles.id else []
         wanted += [roles.label] if roles.label and roles.labels is None else []
-        rows = frames["logs"].select(*(backticked(c) for c in dict.fromkeys(wanted)))
+        rows = frames["logs"].select(*(_backticked(c) for c in dict.fromkeys(wanted)))
         if roles.labels is not None:
             label_id = sources["labels"].column(texts["id_col"], "id_col")
             late = (
                 frames["labels"]
-                .groupBy(F.col(backticked(label_id)).alias(LABEL_ID))
+                .groupBy(F.col(_backticked(label_id)).alias(LABEL_ID))
                 .agg(
                     F.collect_list(
-                        F.struct(F.col(backticked(roles.label)).alias(roles.label))
+                        F.struct(F.col(_backticked(roles.label)).alias(roles.label))
                     ).alias(LATE)
                 )
             )
-            rows = rows.join(late, rows[backticked(roles.id)] == late[LABEL_ID], "left")
+            rows = rows.join(late, rows[_backticked(roles.id)] == late[LABEL_ID], "left")
             rows = rows.drop(LABEL_ID)
         spec = TaskSpec(roles, texts["timezone"])
         self.plan(self.spark_fingerprints(rows, spec))
@@ -177,7 +177,7 @@ class SparkUpdate(Update):
             days = tuple(self.current[k] for k in self.recompute)
             zoned = sources["logs"].type_of(roles.time).startswith("TIMESTAMP WITH")
             values = {"bins": convert(declared.param("bins"), texts["bins"]), **roles.values}
-            output = union_schema(schemas["logs"], keys)
+            output = _union_schema(schemas["logs"], keys)
             spec = dataclasses.replace(spec, values=values, days=days, zoned=zoned, output=output)
             self.frames = self.spark_states(near(rows, roles.time, days), spec, keys)
 
@@ -218,13 +218,13 @@ class SparkUpdate(Update):
         day_key = F.coalesce(F.col("day").cast("string"), F.lit("null"))
         frames = {}
         for name, kind in KINDS_BY_NAME.items():
-            groups = [backticked(c) for c in ["day", *keys, *kind.keys]]
+            groups = [_backticked(c) for c in ["day", *keys, *kind.keys]]
             frames[name] = (
                 parts.where((F.col(KIND) == name) & day_key.isin(list(self.recompute)))
                 .groupBy(*groups)
                 .agg(
                     *(
-                        F.sum(backticked(c)).cast(from_arrow_type(column_type(c))).alias(c)
+                        F.sum(_backticked(c)).cast(from_arrow_type(column_type(c))).alias(c)
                         for c in kind.columns
                     )
                 )
@@ -241,7 +241,7 @@ class SparkUpdate(Update):
         }
         try:
             with Publisher(self.store, base) as pub:
-                rows = stage_days(pub, self.frames, self.recompute, write_from)
+                rows = _stage_days(pub, self.frames, self.recompute, write_from)
                 for key in self.recompute:
                     if rows.get(key, 0) != self.current[key].fingerprint["rows"]:
                         raise DbmetricsError(
@@ -270,7 +270,7 @@ def near(rows, time: str, days: tuple):
     a coarse filter that lets Spark skip files; the tasks cut the exact days."""
     from pyspark.sql import functions as F
 
-    t = F.col(backticked(time))
+    t = F.col(_backticked(time))
     epochs = [d.epoch for d in days if d.epoch is not None]
     keep = t.isNull() if any(d.epoch is None for d in days) else F.lit(False)
     if epochs:
@@ -280,7 +280,7 @@ def near(rows, time: str, days: tuple):
     return rows.where(keep)
 
 
-def stage_days(pub: Publisher, frames: dict, recompute: list, write_from: str) -> dict:
+def _stage_days(pub: Publisher, frames: dict, recompute: list, write_from: str) -> dict:
     """Stage every kind's file of every day in `recompute`; returns {day key: rows}."""
     if write_from == "auto":
         count = frames["state"].count() if frames else 0
@@ -296,7 +296,7 @@ def stage_days(pub: Publisher, frames: dict, recompute: list, write_from: str) -
                 staged[(kind, key)] = day
     else:
         for kind, df in frames.items():
-            write = functools.partial(write_task, str(pub.folder), kind)
+            write = functools.partial(_write_task, str(pub.folder), kind)
             files = (
                 df.repartition(KEY)
                 .mapInArrow(write, "key string, file string, rows long")
@@ -322,7 +322,7 @@ def stage_days(pub: Publisher, frames: dict, recompute: list, write_from: str) -
     return rows
 
 
-def write_task(folder: str, kind: str, batches):
+def _write_task(folder: str, kind: str, batches):
     """mapInArrow body: write each day of the task's rows as one `kind` file into the
     publisher's staging folder (declared schema, a new name); yields key, file, rows."""
     batches = [b for b in batches if b.num_rows]

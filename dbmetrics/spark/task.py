@@ -46,7 +46,7 @@ class TaskSpec:
     threads: int = 1
 
 
-def task_roles(roles: ColumnRoles, logs_columns: dict) -> ColumnRoles:
+def _task_roles(roles: ColumnRoles, logs_columns: dict) -> ColumnRoles:
     """The driver's roles, with the logs read from the task's rows and the label table from
     their LATE lists (once per id: a prediction id may repeat in the logs)."""
     logs = Source("logs", TASK_LOGS, {}, logs_columns)
@@ -69,7 +69,7 @@ def connected(spec: TaskSpec, batches: list):
     con.execute(f"SET TimeZone = '{spec.timezone}'")  # a name checked on the driver
     con.register(TASK_LOGS, pa.Table.from_batches(batches))
     described = con.execute(f"DESCRIBE SELECT * FROM {TASK_LOGS}").fetchall()
-    return con, task_roles(spec.roles, {row[0]: row[1] for row in described})
+    return con, _task_roles(spec.roles, {row[0]: row[1] for row in described})
 
 
 def fingerprints_of_task(
@@ -116,10 +116,10 @@ def states_of_task(spec: TaskSpec, batches: Iterator[pa.RecordBatch]) -> Iterato
     finally:
         con.close()
     for kind, table in states.items():
-        yield from in_output(kind, table, spec.output).to_batches()
+        yield from _in_output(kind, table, spec.output).to_batches()
 
 
-def in_output(kind: str, table: pa.Table, output: pa.Schema) -> pa.Table:
+def _in_output(kind: str, table: pa.Table, output: pa.Schema) -> pa.Table:
     """A state table as rows of the union output: KIND set, other kinds' columns NULL, every
     column cast to the declared Spark-side type (DuckDB may hand back narrower integers)."""
     n = table.num_rows
