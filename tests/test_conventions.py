@@ -73,6 +73,7 @@ print(json.dumps({"rollup": [[r["period"].isoformat(), r["rows"]] for r in days]
 """
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("zone", ["UTC", "America/Los_Angeles"])
 def test_day_boundaries_do_not_depend_on_the_machine_time_zone(zoned_log, zone):
     """The same answer under TZ=UTC and TZ=America/Los_Angeles, and equal to zoneinfo's."""

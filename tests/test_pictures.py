@@ -28,6 +28,7 @@ def test_the_readme_names_the_command_and_every_picture_it_shows_is_drawn_by_it(
     assert all((ROOT / "docs" / "img" / name).is_file() for name in shown)
 
 
+@pytest.mark.slow
 @pytest.mark.skipif(find_spec("matplotlib") is None, reason="needs the 'plot' extra")
 @pytest.mark.skipif(
     shutil.which("chromium") is None and not os.environ.get("CI"),
