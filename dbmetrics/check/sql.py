@@ -38,7 +38,7 @@ TARGET_REASONS = (  # on t = the soft target as DOUBLE[]; NULL targets are not j
 )
 
 
-def cases(reasons) -> str:
+def _cases(reasons) -> str:
     whens = "".join(f"\n         WHEN {cond} THEN '{reason}'" for reason, cond in reasons)
     return f"CASE{whens}\n    END"
 
@@ -71,8 +71,8 @@ def rows(r: Resolved) -> str:
     sized = f"SELECT *, CASE WHEN len(s) > 0 THEN len(s) END AS k\nFROM {nested(cast)}"
     judged = (
         f"SELECT day, {version}, k,\n"
-        f"    {cases(score)} AS score_issue,\n"
-        f"    {cases(labels) if labels else 'NULL'} AS label_issue, shape\n"
+        f"    {_cases(score)} AS score_issue,\n"
+        f"    {_cases(labels) if labels else 'NULL'} AS label_issue, shape\n"
         f"FROM {nested(sized)}"
     )
     return (
@@ -145,6 +145,6 @@ def targets(r: Resolved) -> str:
         f"CAST({scores} AS DOUBLE[]) AS s\nFROM {r.logs.sql}"
     )
     return (
-        f"SELECT CASE WHEN t IS NULL THEN 'no_target' ELSE {cases(TARGET_REASONS)} END "
+        f"SELECT CASE WHEN t IS NULL THEN 'no_target' ELSE {_cases(TARGET_REASONS)} END "
         f"AS reason, count(*) AS n\nFROM {nested(rows_sql)}\nGROUP BY ALL"
     )

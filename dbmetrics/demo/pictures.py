@@ -42,7 +42,7 @@ REPORT = [
 SCREEN = (1200, 1800)  # pixels of the report's screenshot
 
 
-def chromium() -> str:
+def _chromium() -> str:
     """The Chromium executable, or a one-line error saying how to install it."""
     found = shutil.which("chromium") or shutil.which("chromium-browser")
     if not found:
@@ -54,7 +54,7 @@ def screenshot(page: Path, png: Path, size: tuple[int, int] = SCREEN) -> None:
     """A ``size`` screenshot of the top of ``page`` by headless Chromium, fetching nothing."""
     subprocess.run(
         [
-            chromium(),
+            _chromium(),
             "--headless",
             "--no-sandbox",
             "--disable-gpu",

@@ -61,7 +61,7 @@ def _task_roles(roles: ColumnRoles, logs_columns: dict) -> ColumnRoles:
     return dataclasses.replace(roles, logs=logs, labels=Source("labels", labels_sql, {}, columns))
 
 
-def connected(spec: TaskSpec, batches: list):
+def _connected(spec: TaskSpec, batches: list):
     """A DuckDB connection holding the task's rows, and the task's roles over them."""
     import dbmetrics
 
@@ -81,7 +81,7 @@ def fingerprints_of_task(
     batches = [b for b in batches if b.num_rows]
     if not batches:
         return
-    con, roles = connected(spec, batches)
+    con, roles = _connected(spec, batches)
     try:
         days = fingerprints(con, roles)
     finally:
@@ -109,7 +109,7 @@ def states_of_task(spec: TaskSpec, batches: Iterator[pa.RecordBatch]) -> Iterato
     batches = [b for b in batches if b.num_rows]
     if not batches:
         return
-    con, roles = connected(spec, batches)
+    con, roles = _connected(spec, batches)
     try:
         narrowed, bound = only_days(roles, list(spec.days), spec.zoned)
         states = compute_kinds(con, narrowed, {**spec.values, **bound})
