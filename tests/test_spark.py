@@ -16,6 +16,7 @@ start); without pyspark the module is skipped.
 import datetime as dt
 import json
 import os
+import sys
 import warnings
 
 import numpy as np
@@ -200,6 +201,7 @@ def saved_query_tables(con, store):
 def spark():
     from pyspark.sql import SparkSession
 
+    os.environ.setdefault("PYSPARK_PYTHON", sys.executable)  # workers run this interpreter
     running = SparkSession.getActiveSession()
     session = (
         SparkSession.builder.master("local[2]")
