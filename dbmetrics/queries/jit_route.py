@@ -7,6 +7,7 @@ batches' tables up per day x keys x bin, with fsum, exactly as it sums the engin
 the result has STATE's columns and equals the numpy engine's up to rounding.
 """
 
+import os
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 
@@ -89,9 +90,8 @@ def jit_state(
     cursor = con.cursor()  # `con` is busy streaming `rows`
     try:
         threads = cursor.sql("SELECT current_setting('threads')").fetchall()[0][0]
-        sums = _in_threads(
-            lambda b: _batch_sums(b, kind, key_names, bins), batches, max(1, threads)
-        )
+        threads = max(1, min(threads, os.cpu_count() or 1))  # batches in flight: 2 x threads
+        sums = _in_threads(lambda b: _batch_sums(b, kind, key_names, bins), batches, threads)
         parts = [t for t in sums if t is not None]
         cursor.register(
             _PARTS_VIEW, pa.concat_tables(parts) if parts else _no_rows(schema, key_names)
