@@ -13,6 +13,7 @@ import numpy as np
 import pyarrow as pa
 import pytest
 from click.testing import CliRunner
+from scipy import stats as scipy_stats
 
 from dbmetrics import plots
 from dbmetrics.cli.main import cli
@@ -308,7 +309,8 @@ def test_cross_entropy_gets_95_percent_error_bars_from_its_standard_error():
     ax = figure.axes[0]
     [bars] = ax.containers
     lengths = [y1 - y0 for (_, y0), (_, y1) in bars.lines[2][0].get_segments()]
-    assert lengths == pytest.approx([2 * 1.96 * 0.01 * (w + 1) for w in range(6)])
+    z = scipy_stats.norm.ppf(0.975)  # the 95% two-sided normal quantile, from scipy
+    assert lengths == pytest.approx([2 * z * 0.01 * (w + 1) for w in range(6)], rel=1e-12)
     assert ax.get_ylabel() == "cross-entropy (nats)"
 
 

@@ -14,9 +14,8 @@ from dataclasses import dataclass
 import numpy as np
 import pyarrow as pa
 
+from dbmetrics.kernels.significance import Z95
 from dbmetrics.plots.rows import text
-
-Z95 = 1.959963984540054  # the 97.5% standard normal quantile
 
 
 def _wilson_interval(correct: np.ndarray, rows: np.ndarray, z: float = Z95) -> tuple:

@@ -8,15 +8,15 @@ import numpy as np
 import pyarrow as pa
 
 from dbmetrics.errors import DbmetricsError
+from dbmetrics.kernels.significance import Z95
 from dbmetrics.plots.flags import flagged_for, threshold
 from dbmetrics.plots.labels import metric_label, period_label
 from dbmetrics.plots.rows import split_keys, text
 from dbmetrics.plots.style import COLOURS, LINESTYLES, MARKERS, new_figure, tidy
 
-Z95 = 1.96
 REFERENCE = "reference window"
 FLAGGED = "flagged for this measure"
-BARS = f"bars: 95% interval (±{Z95} SE)"
+BARS = f"bars: 95% interval (±{Z95:.2f} SE)"
 INSIDE_LEGEND = 4  # at most this many lines: legend inside the axes, else beside them
 
 

@@ -17,6 +17,7 @@ import pyarrow as pa
 from dbmetrics import __version__
 from dbmetrics.cli.textable import number, safe
 from dbmetrics.errors import DbmetricsError
+from dbmetrics.kernels.significance import Z95
 from dbmetrics.plots.labels import metric_label
 from dbmetrics.report.gather import ReportData
 
@@ -160,7 +161,7 @@ def _latest(data: ReportData) -> str:
                 None
                 if r["cross_entropy"] is None
                 else f"{number(r['cross_entropy'])}"
-                + ("" if se is None else f" ± {number(1.96 * se, 2)}")
+                + ("" if se is None else f" ± {number(Z95 * se, 2)}")
             )
             body.append(
                 _tr(
