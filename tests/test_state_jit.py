@@ -107,8 +107,12 @@ def states(con, path, kind, monkeypatch, jit: bool):
     return partial_states(con, roles, {"bins": 15, "classes": None, **source.bound})["state"]
 
 
-def test_the_kernel_accumulates_exactly_the_state_columns():
-    assert ("day", "bin", *state_jit.COUNTS, *state_jit.SUMS) == STATE_COLUMNS
+def test_every_route_returns_the_state_columns_in_order(con, tmp_path, monkeypatch):
+    path = hard_log(tmp_path / "log.parquet", n=20_000)
+    keys = ["day", "model_version", "region", "plan"]
+    for jit in (True, False):
+        state = states(con, path, "logits", monkeypatch, jit=jit)
+        assert state.column_names == [*keys, *STATE_COLUMNS[1:]]
 
 
 @pytest.mark.parametrize(

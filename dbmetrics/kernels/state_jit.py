@@ -6,7 +6,7 @@ padding), its statistics are computed in float64 and added straight into the acc
 of its group x calibration bin. Nothing per row is materialised, so the state costs the
 exponentials and little else.
 
-Accumulators, in STATE's column order (state_sql.STATE_COLUMNS after day and bin):
+Accumulators, which name STATE's columns after day and bin (state_sql.STATE_COLUMNS):
 COUNTS are int64 row counts, SUMS float64 sums added with Neumaier's compensated summation
 (the compensation is returned separately and added once at the end). Row categories
 (exclusive): missing (NULL or empty list), invalid (NaN or NULL element, +inf logit, all

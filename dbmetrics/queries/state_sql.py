@@ -34,6 +34,7 @@ from dbmetrics.kernels.row_stats import (
     NOT_A_DISTRIBUTION,
     UNLABELLED,
 )
+from dbmetrics.kernels.state_jit import COUNTS, SUMS
 from dbmetrics.udf_adapters import ROW_STATS_TYPE
 
 from .class_sums import (
@@ -47,26 +48,8 @@ from .class_sums import (
 from .roles import KINDS, ColumnRoles, class_index, day, day_start, key_fragments
 from .schema import quote
 
-STATE_COLUMNS = (
-    "day",
-    "bin",
-    "rows",
-    "labelled_rows",
-    "missing_scores",
-    "invalid_scores",
-    "scored_rows",
-    "bad_labels",
-    "infinite_loss_rows",
-    "evaluated_rows",
-    "correct_rows",
-    "sum_confidence",
-    "sum_entropy",
-    "sum_loss",
-    "sum_loss_sq",
-    "sum_brier",
-    "sum_brier_sq",
-    "sum_confidence_evaluated",
-)
+# STATE's columns: the compiled kernel's accumulators, in the order every route returns them.
+STATE_COLUMNS = ("day", "bin", *COUNTS, *SUMS)
 CLASS_STATE_COLUMNS = (
     "day",
     "class",
