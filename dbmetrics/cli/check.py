@@ -10,7 +10,7 @@ import pyarrow as pa
 
 from dbmetrics.atomic import write_output
 from dbmetrics.cli.output import choose_format
-from dbmetrics.cli.params import merge, parse_settings
+from dbmetrics.cli.params import merge, parse_settings, settings_option
 from dbmetrics.cli.textable import render
 from dbmetrics.errors import DbmetricsError
 
@@ -19,14 +19,7 @@ SHOWN_FILES = 20
 
 
 @click.command("check")
-@click.option(
-    "--set",
-    "-s",
-    "settings",
-    multiple=True,
-    metavar="PARAM=VALUE",
-    help="A column-role or check parameter; repeat for more. Wins over the project file.",
-)
+@settings_option("A column-role or check parameter; repeat for more. Wins over the project file.")
 @click.option(
     "--format",
     "-f",

@@ -6,7 +6,7 @@ from __future__ import annotations
 import click
 import pyarrow as pa
 
-from dbmetrics.cli.params import merge, parse_settings
+from dbmetrics.cli.params import merge, parse_settings, settings_option
 from dbmetrics.cli.textable import render
 
 
@@ -78,14 +78,7 @@ def macros_command(output):
 
 @click.command("render")
 @click.argument("name")
-@click.option(
-    "--set",
-    "-s",
-    "settings",
-    multiple=True,
-    metavar="PARAM=VALUE",
-    help="A query parameter; repeat for more. Wins over the project file.",
-)
+@settings_option()
 @click.pass_obj
 def render_command(session, name, settings):
     """Print the saved query NAME as plain SQL, its parameters written in as literals.

@@ -13,6 +13,14 @@ from dbmetrics.project import merge as project_merge
 from dbmetrics.queries import list_queries
 
 _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*\Z")
+QUERY_SETTING = "A query parameter; repeat for more. Wins over the project file."
+
+
+def settings_option(help_text: str = QUERY_SETTING):
+    """The repeatable ``--set PARAM=VALUE`` (``-s``) option, passed on as ``settings``."""
+    return click.option(
+        "--set", "-s", "settings", multiple=True, metavar="PARAM=VALUE", help=help_text
+    )
 
 
 def parse_settings(settings: tuple[str, ...]) -> dict[str, str]:

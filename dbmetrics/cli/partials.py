@@ -7,7 +7,7 @@ import datetime as dt
 import click
 import pyarrow as pa
 
-from dbmetrics.cli.params import merge, parse_settings
+from dbmetrics.cli.params import merge, parse_settings, settings_option
 from dbmetrics.cli.results import emit
 
 
@@ -29,14 +29,9 @@ _UPDATE_OPTIONS = (
     click.option(
         "--store", required=True, metavar="DIR", help="The store folder (created if absent)."
     ),
-    click.option(
-        "--set",
-        "-s",
-        "settings",
-        multiple=True,
-        metavar="PARAM=VALUE",
-        help="A column-role parameter (logs, time_col, scores_col, ...); repeat for more. "
-        "An existing store reuses the ones it was built with.",
+    settings_option(
+        "A column-role parameter (logs, time_col, scores_col, ...); repeat for more. "
+        "An existing store reuses the ones it was built with."
     ),
     click.option(
         "--relabel-days",

@@ -11,21 +11,14 @@ from pathlib import Path
 import click
 
 from dbmetrics.atomic import write_output
-from dbmetrics.cli.params import merge, parse_settings
+from dbmetrics.cli.params import merge, parse_settings, settings_option
 
 
 def _plot_options(command):
     """--set, --by, --only, --start, --end, --title and --output."""
     for option in reversed(
         [
-            click.option(
-                "--set",
-                "-s",
-                "settings",
-                multiple=True,
-                metavar="PARAM=VALUE",
-                help="A query parameter; repeat for more. Wins over the project file.",
-            ),
+            settings_option(),
             click.option(
                 "--by",
                 metavar="COLUMN",

@@ -12,7 +12,7 @@ from pathlib import Path
 import click
 
 from dbmetrics.atomic import write_output
-from dbmetrics.cli.params import merge, parse_settings
+from dbmetrics.cli.params import merge, parse_settings, settings_option
 from dbmetrics.errors import DbmetricsError
 
 QUERIES = ("rollup", "drift", "calibration", "labels", "version_gap")
@@ -25,14 +25,7 @@ def _html_path(ctx, param, value: str) -> str:
 
 
 @click.command("report")
-@click.option(
-    "--set",
-    "-s",
-    "settings",
-    multiple=True,
-    metavar="PARAM=VALUE",
-    help="A query parameter for every query that has it; repeat for more.",
-)
+@settings_option("A query parameter for every query that has it; repeat for more.")
 @click.option(
     "--start",
     type=click.DateTime(["%Y-%m-%d"]),

@@ -4,20 +4,13 @@ from __future__ import annotations
 
 import click
 
-from dbmetrics.cli.params import merge, parse_settings
+from dbmetrics.cli.params import merge, parse_settings, settings_option
 from dbmetrics.cli.results import emit, key_columns, output_options
 
 
 @click.command("run")
 @click.argument("name")
-@click.option(
-    "--set",
-    "-s",
-    "settings",
-    multiple=True,
-    metavar="PARAM=VALUE",
-    help="A query parameter; repeat for more. Wins over the project file.",
-)
+@settings_option()
 @click.option(
     "--since", metavar="DATE", help="Keep the periods whose first day is on or after DATE."
 )
