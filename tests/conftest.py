@@ -78,6 +78,24 @@ def assert_same_table(expected: pa.Table, got: pa.Table) -> None:
 
 
 @pytest.fixture
+def invoke(tmp_path, monkeypatch):
+    """Run the CLI in an empty folder with no project file or environment settings:
+    invoke("run", "rollup", ..., input=None) -> click's Result."""
+    from click.testing import CliRunner
+
+    from dbmetrics.cli.main import cli
+
+    monkeypatch.chdir(tmp_path)
+    for name in ("DBMETRICS_PROJECT", "DBMETRICS_DATABASE", "DBMETRICS_QUERY_PATH"):
+        monkeypatch.delenv(name, raising=False)
+
+    def run(*args, input=None):
+        return CliRunner().invoke(cli, list(args), input=input)
+
+    return run
+
+
+@pytest.fixture
 def same_table():
     """assert_same_table, for test modules (which cannot import each other)."""
     return assert_same_table

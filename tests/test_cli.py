@@ -11,26 +11,12 @@ from pathlib import Path
 import click
 import pyarrow.parquet as pq
 import pytest
-from click.testing import CliRunner
 
 import dbmetrics
 from dbmetrics.cli import output
 from dbmetrics.cli.main import cli
 
 FLAGS_SQL = "SELECT * FROM (VALUES (1, false), (2, {flag}), (3, NULL)) t(id, flagged)"
-
-
-@pytest.fixture
-def invoke(tmp_path, monkeypatch):
-    """Run the CLI in an empty folder with no project file or environment settings."""
-    monkeypatch.chdir(tmp_path)
-    for name in ("DBMETRICS_PROJECT", "DBMETRICS_DATABASE", "DBMETRICS_QUERY_PATH"):
-        monkeypatch.delenv(name, raising=False)
-
-    def run(*args, input=None):
-        return CliRunner().invoke(cli, list(args), input=input)
-
-    return run
 
 
 def test_sql_prints_an_aligned_table_with_the_functions_registered(invoke):

@@ -1,17 +1,6 @@
 """Out-of-range settings are one line naming the option, before any work starts."""
 
 import pytest
-from click.testing import CliRunner
-
-from dbmetrics.cli.main import cli
-
-
-@pytest.fixture
-def invoke(tmp_path, monkeypatch):
-    monkeypatch.chdir(tmp_path)
-    for name in ("DBMETRICS_PROJECT", "DBMETRICS_DATABASE", "DBMETRICS_QUERY_PATH"):
-        monkeypatch.delenv(name, raising=False)
-    return lambda *args: CliRunner().invoke(cli, list(args))
 
 
 def one_line_error(result, status: int) -> str:

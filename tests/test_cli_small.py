@@ -11,21 +11,11 @@ from pathlib import Path
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
-from click.testing import CliRunner
 
 import dbmetrics
-from dbmetrics.cli.main import cli
 from dbmetrics.cli.session import Session
 
 ROOT = Path(dbmetrics.__file__).parent.parent
-
-
-@pytest.fixture
-def invoke(tmp_path, monkeypatch):
-    monkeypatch.chdir(tmp_path)
-    for name in ("DBMETRICS_PROJECT", "DBMETRICS_DATABASE", "DBMETRICS_QUERY_PATH"):
-        monkeypatch.delenv(name, raising=False)
-    return lambda *args: CliRunner().invoke(cli, list(args))
 
 
 def test_version_is_the_package_version(invoke):

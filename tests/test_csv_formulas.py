@@ -10,23 +10,13 @@ import json
 
 import pyarrow as pa
 import pytest
-from click.testing import CliRunner
 
-from dbmetrics.cli.main import cli
 from dbmetrics.cli.output import encode
 
 SQL = (
     "SELECT * FROM (VALUES ('=HYPERLINK(\"http://x\")', -1.5, '-2'), "
     "('@SUM(A1)', 2.0, '+cmd|x'), ('plain', -3.0, '-1+2'), (NULL, NULL, NULL)) t(seg, gap, \"=n\")"
 )
-
-
-@pytest.fixture
-def invoke(tmp_path, monkeypatch):
-    monkeypatch.chdir(tmp_path)
-    for name in ("DBMETRICS_PROJECT", "DBMETRICS_DATABASE", "DBMETRICS_QUERY_PATH"):
-        monkeypatch.delenv(name, raising=False)
-    return lambda *args: CliRunner().invoke(cli, list(args))
 
 
 def test_csv_text_cells_that_would_run_get_a_leading_quote(invoke):

@@ -11,21 +11,11 @@ import stat
 from pathlib import Path
 
 import pytest
-from click.testing import CliRunner
 
 import dbmetrics
 from dbmetrics import atomic
-from dbmetrics.cli.main import cli
 
 CSV = b'"x"\n1\n'
-
-
-@pytest.fixture
-def invoke(tmp_path, monkeypatch):
-    monkeypatch.chdir(tmp_path)
-    for name in ("DBMETRICS_PROJECT", "DBMETRICS_DATABASE", "DBMETRICS_QUERY_PATH"):
-        monkeypatch.delenv(name, raising=False)
-    return lambda *args: CliRunner().invoke(cli, list(args))
 
 
 def test_a_fifo_is_written_through_and_stays_a_fifo(invoke, tmp_path):

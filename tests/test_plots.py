@@ -12,7 +12,6 @@ import click
 import numpy as np
 import pyarrow as pa
 import pytest
-from click.testing import CliRunner
 from scipy import stats as scipy_stats
 
 from dbmetrics import plots
@@ -47,15 +46,6 @@ def png_size(path: Path) -> tuple[int, int]:
     assert zlib.crc32(kind + body) == crc
     assert data[-12:] == b"\x00\x00\x00\x00IEND\xaeB`\x82"
     return struct.unpack(">II", body[:8])
-
-
-@pytest.fixture
-def invoke(tmp_path, monkeypatch):
-    """Run the CLI in an empty folder with no project file or environment settings."""
-    monkeypatch.chdir(tmp_path)
-    for name in ("DBMETRICS_PROJECT", "DBMETRICS_DATABASE", "DBMETRICS_QUERY_PATH"):
-        monkeypatch.delenv(name, raising=False)
-    return lambda *args: CliRunner().invoke(cli, list(args))
 
 
 # --- the commands write PNGs of the expected size -------------------------------------------
