@@ -23,6 +23,7 @@ import pyarrow.compute as pc
 
 from dbmetrics.errors import DbmetricsError
 from dbmetrics.queries.header import COLUMN_MAP, column_roles_info
+from dbmetrics.queries.role_params import COLUMN_ROLES
 from dbmetrics.queries.roles import column_roles
 from dbmetrics.queries.schema import first_line, open_source
 from dbmetrics.queries.state_kinds import KIND_NAMES, compute_kinds
@@ -33,20 +34,8 @@ from dbmetrics.queries.values import convert, with_defaults
 from .fingerprint import fingerprints, only_days
 from .store import Publisher, Store
 
-RECORDED = (
-    "time_col",
-    "scores_col",
-    "scores_kind",
-    "label_col",
-    "version_col",
-    "segment_cols",
-    "labels",
-    "id_col",
-    "classes",
-    "bins",
-    "timezone",
-    "unlabelled_value",
-)
+# The column roles a store records (all but the logs, which may move) and reuses on update.
+RECORDED = tuple(role for role in COLUMN_ROLES if role != "logs")
 KNOWN = (*COLUMN_MAP, "timezone")
 KEY = "dbmetrics_day_key"
 STAGED = "dbmetrics_partials_day"
